@@ -1,0 +1,32 @@
+# Every target makes its own virtual environment in .venv from the package registries.
+PYTHON ?= $(shell command -v python3.11 || command -v python3)
+VENV   := .venv
+BIN    := $(VENV)/bin
+STUDY  ?= scenarios/oxidation.toml
+
+.PHONY: demo test bench clean
+
+$(BIN)/python:
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+
+$(VENV)/.installed: pyproject.toml | $(BIN)/python
+	$(BIN)/python -m pip install --quiet -e '.[test,bench]'
+	touch $@
+
+demo: $(VENV)/.installed
+	$(BIN)/tubeyield check $(STUDY)
+	$(BIN)/tubeyield optimize $(STUDY) --save reports/results/oxidation
+	$(BIN)/tubeyield front $(STUDY) --save reports/results/oxidation
+	$(BIN)/tubeyield window $(STUDY) --save reports/results/oxidation
+	$(BIN)/tubeyield report reports/results/oxidation --out reports/oxidation
+	@echo "report written: reports/oxidation/index.html"
+
+test: $(VENV)/.installed
+	$(BIN)/python -m pytest -q
+
+bench: $(VENV)/.installed
+	$(BIN)/python tests/benchmarks/run.py --out reports/bench
+
+clean:
+	rm -rf $(VENV) build src/*.egg-info .pytest_cache

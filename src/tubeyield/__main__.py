@@ -1,0 +1,3 @@
+from tubeyield.cli import main
+
+raise SystemExit(main())

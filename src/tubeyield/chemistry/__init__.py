@@ -1,0 +1,1 @@
+"""The reaction network: stoichiometry, formulas and the linear-programming checks."""

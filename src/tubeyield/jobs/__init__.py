@@ -1,0 +1,1 @@
+"""Jobs: thin compositions of load, build, solve, check and report."""

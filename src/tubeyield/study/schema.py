@@ -1,0 +1,251 @@
+"""The study as typed, frozen dataclasses, in SI units (mol, m^3, s, K, J, Pa).
+
+Built only by `study.load`; read by everything else. Nothing here knows about units or files.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+
+from tubeyield.study.metric import Limit, Metric
+
+GAS_CONSTANT = 8.314462618  # J/(mol K), CODATA 2018 exact value of R
+
+
+@dataclass(frozen=True)
+class Species:
+    symbol: str
+    label: str = ""
+    formula: str | None = None
+    molar_mass: float | None = None   # kg/mol
+    Cp: float | None = None           # molar heat capacity, J/(mol K)
+
+
+@dataclass(frozen=True)
+class Arrhenius:
+    """k(T) = k_ref exp(-Ea/R (1/T - 1/T_ref)), stored as ln k_ref so rate constants over many decades stay exact.
+
+    The reference-temperature form decouples k_ref and Ea in fits and optimizers (common practice; see e.g.
+    Schwaab and Pinto, Chem. Eng. Sci. 62 (2007) 2750, on reparameterizing the Arrhenius equation).
+    """
+    ln_k_ref: float   # natural log of the SI value at T_ref
+    T_ref: float      # K
+    Ea: float         # J/mol
+
+    def ln_value(self, T, mx):
+        return self.ln_k_ref - self.Ea / GAS_CONSTANT * (1.0 / T - 1.0 / self.T_ref)
+
+
+@dataclass(frozen=True)
+class VantHoff:
+    """K(T) = K_ref exp(-dH/R (1/T - 1/T_ref)): equilibrium or adsorption constant (van 't Hoff equation)."""
+    ln_K_ref: float
+    T_ref: float
+    dH: float
+
+    def ln_value(self, T, mx):
+        return self.ln_K_ref - self.dH / GAS_CONSTANT * (1.0 / T - 1.0 / self.T_ref)
+
+
+@dataclass(frozen=True)
+class Reaction:
+    id: str
+    equation: str
+    reactants: tuple[tuple[str, float], ...]
+    products: tuple[tuple[str, float], ...]
+    law: str                                   # power | reversible | adsorption
+    orders: tuple[tuple[str, float], ...]      # forward orders
+    rate: Arrhenius                            # forward rate constant
+    reverse_orders: tuple[tuple[str, float], ...] = ()
+    equilibrium: VantHoff | None = None        # law = reversible: concentration-based K_c
+    adsorption: tuple[tuple[str, VantHoff], ...] = ()   # law = adsorption: K_i in 1/concentration
+    denominator_power: float = 1.0
+    dH: float | None = None                    # heat of reaction at T_ref, J per mol of reaction as written
+
+    @property
+    def reversible(self) -> bool:
+        return self.law == "reversible"
+
+    def stoichiometry(self) -> dict[str, float]:
+        """Net coefficients: negative for consumed, positive for formed."""
+        net: dict[str, float] = {}
+        for s, c in self.reactants:
+            net[s] = net.get(s, 0.0) - c
+        for s, c in self.products:
+            net[s] = net.get(s, 0.0) + c
+        return net
+
+    def rate_expression(self, conc: dict, T, mx):
+        """Rate of reaction (mol/(m^3 s)) from concentrations (mol/m^3) and T (K).
+
+        `mx` is a math namespace with `exp` (numpy or pyomo.environ): the same code serves the Pyomo model and the
+        scipy reference simulation.
+        - power:      r = k(T) prod c_i^n_i
+        - reversible: r = k(T) (prod_reactants c^n - prod_products c^m / K_c(T))
+        - adsorption: r = k(T) prod c_i^n_i / (1 + sum K_i(T) c_i)^p   (Langmuir-Hinshelwood-Hougen-Watson form;
+                      Froment, Bischoff and De Wilde, Chemical Reactor Analysis and Design, 3rd ed. 2011, ch. 2)
+        """
+        k = mx.exp(self.rate.ln_value(T, mx))
+        forward = _product(conc, self.orders)
+        if self.law == "reversible":
+            K = mx.exp(self.equilibrium.ln_value(T, mx))
+            return k * (forward - _product(conc, self.reverse_orders) / K)
+        if self.law == "adsorption":
+            denominator = 1.0
+            for s, ads in self.adsorption:
+                denominator = denominator + mx.exp(ads.ln_value(T, mx)) * conc[s]
+            return k * forward / denominator ** self.denominator_power
+        return k * forward
+
+    def heat_of_reaction(self, T, heat_capacity_change: float):
+        """dH(T) = dH(T_ref) + dCp (T - T_ref), with dCp = sum nu_i Cp_i constant (Kirchhoff's law)."""
+        return (self.dH or 0.0) + heat_capacity_change * (T - self.rate.T_ref)
+
+
+def _product(conc: dict, orders) -> object:
+    value = 1.0
+    for s, n in orders:
+        if n == 0:
+            continue
+        value = value * (conc[s] if n == 1 else conc[s] ** n)
+    return value
+
+
+@dataclass(frozen=True)
+class Feed:
+    phase: str                                 # liquid | gas
+    flow: float                                # volumetric flow at the inlet, m^3/s
+    conc: tuple[tuple[str, float], ...] = ()   # liquid: inlet concentrations, mol/m^3
+    pressure: float | None = None              # gas: Pa
+    fractions: tuple[tuple[str, float], ...] = ()  # gas: inlet mole fractions (the balance species included)
+    balance: str | None = None                 # gas: the species that makes the fractions sum to one
+    T: float | None = None                     # feed temperature, K (gas: the temperature the flow is measured at)
+
+    def inlet(self) -> dict[str, float]:
+        """Liquid: concentrations in mol/m^3; gas: mole fractions."""
+        return dict(self.conc if self.phase == "liquid" else self.fractions)
+
+
+@dataclass(frozen=True)
+class Reactor:
+    kind: str = "plug"            # plug | stirred | stirred-series
+    heat: str = "isothermal"      # isothermal | zones | free | adiabatic | cooled
+    elements: int = 40            # finite elements along the tube
+    points: int = 3               # Radau collocation points per element
+    zones: int = 1                # heat = zones
+    tanks: int = 1                # kind = stirred-series
+    U: float | None = None        # wall heat-transfer coefficient, W/(m^2 K) (heat = cooled)
+    diameter: float | None = None # tube diameter, m (heat = cooled: area per volume 4/d)
+    grading: float = 1.0          # ratio of the last element's length to the first (1 = uniform mesh)
+
+
+@dataclass(frozen=True)
+class Decision:
+    """An operating decision: optimized between low and high, or fixed when low == high. SI values."""
+    name: str                     # tau | T | T_in | T_cool | ratio.<species>
+    low: float
+    high: float
+    unit: str                     # the user's unit, for reporting
+    si_unit: str
+
+    @property
+    def fixed(self) -> bool:
+        return self.low == self.high
+
+    def with_value(self, value: float) -> "Decision":
+        return replace(self, low=value, high=value)
+
+
+@dataclass(frozen=True)
+class Goal:
+    metric: Metric
+    sense: str                    # max | min
+    key: str                      # key reactant
+    limits: tuple[Limit, ...] = ()
+    value: tuple[tuple[str, float], ...] = ()   # margin: value per mol at the outlet
+    cost: tuple[tuple[str, float], ...] = ()    # margin: cost per mol fed
+    currency: str = ""
+
+
+@dataclass(frozen=True)
+class FrontSpec:
+    x: Metric
+    y: Metric
+    points: int = 21
+
+
+@dataclass(frozen=True)
+class WindowSpec:
+    x: str                        # decision names
+    y: str
+    points: tuple[int, int] = (60, 60)
+    others: str = "optimum"       # optimum | optimized
+    fix: tuple[tuple[str, float], ...] = ()
+
+
+@dataclass(frozen=True)
+class Variation:
+    path: str                     # e.g. reaction.over.Ea
+    values: tuple[float, ...] = ()           # grid values, SI
+    distribution: str | None = None          # normal | lognormal | uniform | triangular
+    parameters: tuple[float, ...] = ()       # SI
+    unit: str = ""
+
+
+@dataclass(frozen=True)
+class SweepSpec:
+    vary: tuple[Variation, ...]
+    samples: int = 0
+    seed: int = 0
+    run: str = "optimize"         # optimize | front | evaluate
+    time_limit: float = 300.0     # seconds per scenario
+    share: float = 0.95           # robustness: share of samples in which every limit must hold
+
+
+@dataclass(frozen=True)
+class Numerics:
+    starts: int = 4
+    check_tolerance: float = 1e-6
+    max_elements: int = 640
+    solver: str = "bundled"       # bundled (casadi's Ipopt) | executable (an ipopt on PATH)
+    ipopt: tuple[tuple[str, object], ...] = ()
+
+
+@dataclass(frozen=True)
+class Study:
+    name: str
+    species: tuple[Species, ...]
+    reactions: tuple[Reaction, ...]
+    feed: Feed
+    reactor: Reactor
+    decisions: tuple[Decision, ...]
+    goal: Goal
+    front: FrontSpec | None = None
+    window: WindowSpec | None = None
+    sweep: SweepSpec | None = None
+    numerics: Numerics = field(default_factory=Numerics)
+    description: str = ""
+    path: str = ""
+    source: str = ""              # the study text as read, for reports that reproduce
+    includes: tuple[tuple[str, str], ...] = ()   # (path, text) of included network files
+
+    @property
+    def symbols(self) -> tuple[str, ...]:
+        return tuple(s.symbol for s in self.species)
+
+    def decision(self, name: str) -> Decision:
+        for d in self.decisions:
+            if d.name == name:
+                return d
+        raise KeyError(name)
+
+    def reaction(self, rid: str) -> Reaction:
+        for r in self.reactions:
+            if r.id == rid:
+                return r
+        raise KeyError(rid)
+
+    def with_decisions(self, values: dict[str, float]) -> "Study":
+        """The same study with some decisions fixed at the given SI values."""
+        new = tuple(d.with_value(values[d.name]) if d.name in values else d for d in self.decisions)
+        return replace(self, decisions=new)

@@ -1,0 +1,136 @@
+"""The one unit registry (pint) and the conversions at the boundary.
+
+Every quantity a user writes is a string such as "60 kJ/mol" or "2 L/min". It is parsed here once, checked against the
+dimension the key expects, and handed on as a float in SI units (mol, m^3, s, K, J, Pa). Nothing past the loader sees
+a unit.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from functools import lru_cache
+
+import pint
+
+from tubeyield.errors import StudyError
+
+ureg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+Quantity = ureg.Quantity
+
+# Expected kinds of quantity: SI unit the numerics use, and an example shown in error messages.
+KINDS: dict[str, tuple[str, str]] = {
+    "time": ("s", "a time such as '90 s' or '5 min'"),
+    "temperature": ("K", "a temperature such as '350 K' or '80 degC'"),
+    "concentration": ("mol/m^3", "a concentration such as '1.0 mol/L'"),
+    "flow": ("m^3/s", "a volumetric flow such as '2 L/min'"),
+    "molar_energy": ("J/mol", "a molar energy such as '60 kJ/mol'"),
+    "molar_heat_capacity": ("J/(mol*K)", "a molar heat capacity such as '75 J/(mol*K)'"),
+    "pressure": ("Pa", "a pressure such as '2 bar'"),
+    "molar_mass": ("kg/mol", "a molar mass such as '106.2 g/mol'"),
+    "length": ("m", "a length such as '25 mm'"),
+    "heat_transfer": ("W/(m^2*K)", "a heat-transfer coefficient such as '400 W/(m^2*K)'"),
+    "volume": ("m^3", "a volume such as '5 L'"),
+    "dimensionless": ("", "a plain number such as 0.5"),
+}
+
+_NUMBER_UNIT = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
+
+
+@lru_cache(maxsize=256)
+def _unit(text: str):
+    return ureg.Unit(text) if text else ureg.dimensionless
+
+
+def parse_quantity(value, key: str) -> "pint.Quantity":
+    """Parse '60 kJ/mol' (or a bare number) into a pint Quantity; a StudyError names `key` when it cannot."""
+    if isinstance(value, bool):
+        raise StudyError(key, f"a number with units, got {value!r}")
+    if isinstance(value, (int, float)):
+        if not math.isfinite(value):
+            raise StudyError(key, f"a finite number, got {value!r}")
+        return Quantity(float(value), ureg.dimensionless)
+    if not isinstance(value, str):
+        raise StudyError(key, f"a quantity written as a string such as '350 K', got {type(value).__name__} {value!r}")
+    match = _NUMBER_UNIT.match(value)
+    if not match:
+        raise StudyError(key, f"a number followed by a unit such as '350 K', got {value!r}")
+    number, unit_text = match.groups()
+    try:
+        magnitude = float(number)
+        unit = _unit(unit_text.strip())
+    except Exception as exc:  # pint raises several exception types for unknown or malformed units
+        raise StudyError(key, f"a known unit, could not read {unit_text!r} in {value!r} ({type(exc).__name__})") from None
+    if not math.isfinite(magnitude):
+        raise StudyError(key, f"a finite number, got {value!r}")
+    return Quantity(magnitude, unit)
+
+
+def to_si(value, kind: str, key: str) -> float:
+    """Parse `value` and convert it to the SI unit of `kind`; a wrong dimension is a StudyError naming the key."""
+    si_unit, example = KINDS[kind]
+    q = parse_quantity(value, key)
+    target = _unit(si_unit)
+    if q.dimensionality != target.dimensionality:
+        raise StudyError(key, f"{example}; got {value!r}, which has dimension {_dims(q)}")
+    return float(q.to(target).magnitude)
+
+
+def rate_constant_to_si(value, concentration_power: float, key: str, *, per: str = "time") -> float:
+    """Convert a rate-type constant whose unit must be concentration^power / time (per='time') or
+    concentration^power (per='none'), e.g. a second-order rate constant '0.05 L/(mol*s)' has power -1."""
+    q = parse_quantity(value, key)
+    expected = (ureg.mol / ureg.m**3) ** concentration_power
+    if per == "time":
+        expected = expected / ureg.s
+    ratio = (q / expected).to_base_units()
+    bad = {d: e for d, e in ratio.dimensionality.items() if abs(e) > 1e-9}
+    if bad:
+        shown = _pretty_power(concentration_power)
+        need = f"concentration^{shown}" + ("/time" if per == "time" else "")
+        example = _example_rate_unit(concentration_power, per)
+        raise StudyError(key, f"a quantity of dimension {need} (for example {example!r}); got {value!r}, "
+                              f"which has dimension {_dims(q)}")
+    return float(ratio.magnitude)
+
+
+def _pretty_power(p: float) -> str:
+    return str(int(p)) if float(p).is_integer() else f"{p:g}"
+
+
+def _example_rate_unit(power: float, per: str) -> str:
+    tail = "/s" if per == "time" else ""
+    if abs(power) < 1e-12:
+        return "0.1 1/s" if per == "time" else "2.0"
+    if power == -1:
+        return "0.05 L/(mol*s)" if per == "time" else "0.5 L/mol"
+    if power == 1:
+        return "0.01 mol/(L*s)" if per == "time" else "2 mol/L"
+    return f"1.0 (mol/L)^{_pretty_power(power)}{tail}"
+
+
+def _dims(q) -> str:
+    d = q.dimensionality
+    return "dimensionless" if not d else str(d)
+
+
+def format_quantity(si_value: float, si_unit: str, user_unit: str, digits: int = 6) -> str:
+    """Format an SI value in the user's unit, e.g. format_quantity(7200, 's', 'min') -> '120 min'."""
+    q = Quantity(si_value, _unit(si_unit)).to(_unit(user_unit))
+    return f"{q.magnitude:.{digits}g} {user_unit}".strip()
+
+
+def convert(si_value: float, si_unit: str, user_unit: str) -> float:
+    """Convert an SI magnitude to the user's unit."""
+    if si_unit == user_unit:
+        return si_value
+    return float(Quantity(si_value, _unit(si_unit)).to(_unit(user_unit)).magnitude)
+
+
+def unit_text(value) -> str:
+    """The unit part of a user's quantity string ('' for a bare number)."""
+    if isinstance(value, str):
+        m = _NUMBER_UNIT.match(value)
+        if m:
+            return m.group(2).strip()
+    return ""
