@@ -6,7 +6,7 @@ import sys
 
 import pytest
 
-from conftest import SCENARIOS
+from helpers import SCENARIOS
 from tubeyield.chemistry.consistency import check_network, stoichiometric_consistency
 from tubeyield.chemistry.network import Network, reactions_that_cannot_start
 from tubeyield.study import load_study, study_from_dict

@@ -8,7 +8,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from conftest import BASE_TOML, SCENARIOS
+from helpers import BASE_TOML, SCENARIOS
 from tubeyield.errors import StudyError
 from tubeyield.study import load_study, study_from_dict
 from tubeyield.study.equation import parse_equation

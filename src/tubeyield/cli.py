@@ -24,6 +24,20 @@ def _parser() -> argparse.ArgumentParser:
     c = sub.add_parser("check", help="validate a study and its reaction network")
     c.add_argument("study")
     c.add_argument("--json", action="store_true", help="print the check as JSON")
+
+    o = sub.add_parser("optimize", help="find the best operating point, what limits it, and verify it")
+    o.add_argument("study")
+    o.add_argument("--json", action="store_true", help="print the Result as JSON")
+    o.add_argument("--save", metavar="DIR", help="write optimum.json, optimum-profile.csv and the inputs to DIR")
+    o.add_argument("--starts", type=int, help="number of starting points (default: numerics.starts)")
+    o.add_argument("--tee", action="store_true", help="show Ipopt's iteration log")
+
+    s = sub.add_parser("simulate", help="profiles and metrics at a given operating point")
+    s.add_argument("study")
+    s.add_argument("--set", dest="settings", action="append", default=[], metavar="NAME=VALUE",
+                   help="a decision value with units, e.g. tau=120s, T=340K, ratio.O=1.5 (repeatable)")
+    s.add_argument("--json", action="store_true")
+    s.add_argument("--profile", metavar="CSV", help="write the axial profile to this CSV file")
     return p
 
 
@@ -90,4 +104,48 @@ def _check(args) -> int:
     return EXIT_OK
 
 
-JOBS = {"check": _check}
+# --------------------------------------------------------------------------------------------- optimize, simulate
+
+
+def _optimize(args) -> int:
+    from tubeyield.jobs.optimize import optimize
+    from tubeyield.report.files import save_result
+    from tubeyield.report.text import optimum_summary
+    from tubeyield.study import load_study
+
+    study = load_study(args.study)
+    if args.starts is not None and args.starts < 1:
+        raise StudyError("--starts", f"a positive number of starts, got {args.starts}")
+    result = optimize(study, starts=args.starts, tee=args.tee)
+    if args.save:
+        save_result(args.save, "optimum", result, study)
+    if args.json:
+        _print_json(result.to_dict())
+    else:
+        print(optimum_summary(result))
+    if result.status == "infeasible":
+        return EXIT_INFEASIBLE
+    return EXIT_OK if result.status == "optimal" else EXIT_FAILED
+
+
+def _simulate(args) -> int:
+    from tubeyield.jobs.evaluate import evaluate, parse_settings
+    from tubeyield.report.files import write_atomic
+    from tubeyield.report.text import evaluation_summary
+    from tubeyield.study import load_study
+
+    study = load_study(args.study)
+    values, notes = parse_settings(study, args.settings)
+    result = evaluate(study, values)
+    if args.profile:
+        write_atomic(args.profile, result.profile.to_csv(index=False))
+    if args.json:
+        d = result.to_dict()
+        d["notes"] = notes
+        _print_json(d)
+    else:
+        print(evaluation_summary(result, notes))
+    return EXIT_OK
+
+
+JOBS = {"check": _check, "optimize": _optimize, "simulate": _simulate}

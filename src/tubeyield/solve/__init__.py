@@ -1,0 +1,42 @@
+"""Solvers: the Ipopt plug-in (casadi's bundled Ipopt through NL files), starting points, marginals."""
+
+from __future__ import annotations
+
+import shutil
+
+import pyomo.environ as pyo
+
+from tubeyield.errors import StudyError
+from tubeyield.solve import ipopt as _plugin  # noqa: F401  (registers the plug-in with Pyomo's SolverFactory)
+from tubeyield.solve.ipopt import NAME, OK_CONDITIONS
+
+
+def make_solver(numerics):
+    """The bundled Ipopt plug-in, or Pyomo's interface to an `ipopt` executable on PATH when the study asks."""
+    if numerics.solver == "executable":
+        if shutil.which("ipopt") is None:
+            raise StudyError("numerics.solver", "an 'ipopt' executable on PATH for solver = 'executable'; none found "
+                                                "(use solver = 'bundled' for the Ipopt in the casadi wheel)")
+        return ExecutableIpopt()
+    return pyo.SolverFactory(NAME)
+
+
+class ExecutableIpopt:
+    """Pyomo's own `ipopt` interface with the same call as the plug-in (reuse options are ignored)."""
+
+    def __init__(self):
+        self._solver = pyo.SolverFactory("ipopt")
+        self.last_stats = {}
+        self.last_timing = {}
+
+    def solve(self, model, *, options=None, warmstart=False, reuse_structure=False, tee=False):
+        import time
+        t0 = time.perf_counter()
+        res = self._solver.solve(model, options=dict(options or {}), tee=tee, load_solutions=True)
+        self.last_timing = {"total": time.perf_counter() - t0, "nl_write": 0.0, "solver_build": 0.0,
+                            "ipopt": time.perf_counter() - t0}
+        self.last_stats = {"return_status": str(res.solver.termination_condition), "iterations": -1}
+        return res
+
+
+__all__ = ["NAME", "OK_CONDITIONS", "make_solver"]

@@ -99,7 +99,8 @@ class Reaction:
 
     def heat_of_reaction(self, T, heat_capacity_change: float):
         """dH(T) = dH(T_ref) + dCp (T - T_ref), with dCp = sum nu_i Cp_i constant (Kirchhoff's law)."""
-        return (self.dH or 0.0) + heat_capacity_change * (T - self.rate.T_ref)
+        dH = 0.0 if self.dH is None else self.dH
+        return dH + heat_capacity_change * (T - self.rate.T_ref)
 
 
 def _product(conc: dict, orders) -> object:

@@ -16,6 +16,8 @@ import pint
 from tubeyield.errors import StudyError
 
 ureg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+# The pound-mole of US practice: the amount whose mass in pounds equals the molar mass (453.59237 mol, exact).
+ureg.define("pound_mole = 453.59237 * mole = lbmol = lb_mol")
 Quantity = ureg.Quantity
 
 # Expected kinds of quantity: SI unit the numerics use, and an example shown in error messages.
@@ -125,6 +127,14 @@ def convert(si_value: float, si_unit: str, user_unit: str) -> float:
     if si_unit == user_unit:
         return si_value
     return float(Quantity(si_value, _unit(si_unit)).to(_unit(user_unit)).magnitude)
+
+
+def unit_step(user_unit: str, si_unit: str) -> float:
+    """SI size of one user unit taken as a difference (one degC step is one K), for marginal values per unit."""
+    if not user_unit:
+        return 1.0
+    q = Quantity(1.0, _unit(user_unit)) - Quantity(0.0, _unit(user_unit))
+    return float(q.to(_unit(si_unit)).magnitude)
 
 
 def unit_text(value) -> str:

@@ -1,0 +1,79 @@
+"""The evaluate job: the study at a given operating point, by the reference simulation alone (no optimization)."""
+
+from __future__ import annotations
+
+import time
+
+from tubeyield.errors import StudyError
+from tubeyield.jobs.result import Result
+from tubeyield.reactor.metrics import all_metrics
+from tubeyield.reactor.simulate import simulate
+from tubeyield.solve.multistart import violation
+from tubeyield.study.schema import Study
+from tubeyield.study.units import convert, to_si
+
+_KIND = {"s": "time", "K": "temperature", "": "dimensionless"}
+
+
+def parse_settings(study: Study, settings: list[str]) -> tuple[dict, list[str]]:
+    """`name=value` settings ("tau=120 s", "T=340K", "ratio.O=1.5") -> SI values for every decision, and notes on
+    decisions left at the middle of their range. `T=...` sets every zone of a zoned reactor."""
+    values: dict[str, float] = {}
+    names = [d.name for d in study.decisions]
+    for text in settings:
+        name, sep, raw = text.partition("=")
+        name = name.strip()
+        if not sep:
+            raise StudyError(f"--set {text}", "name=value with units, e.g. tau=120s or T=340K")
+        targets = [n for n in names if n.startswith("T.")] if name == "T" and "T" not in names else [name]
+        if not targets or targets[0] not in names:
+            raise StudyError(f"--set {text}", f"a decision, one of {', '.join(names)}")
+        d = study.decision(targets[0])
+        v = to_si(raw.strip(), _KIND[d.si_unit], f"--set {name}")
+        for n in targets:
+            values[n] = v
+    notes = []
+    for d in study.decisions:
+        if d.name not in values:
+            values[d.name] = d.low if d.fixed else 0.5 * (d.low + d.high)
+            if not d.fixed:
+                shown = convert(values[d.name], d.si_unit, d.unit) if d.unit else values[d.name]
+                notes.append(f"{d.name} not set: the middle of its range, {shown:.6g} {d.unit}".rstrip())
+    return values, notes
+
+
+def evaluate(study: Study, values: dict) -> Result:
+    """Metrics, outlet and limits at `values` (SI by decision name) from the reference simulation."""
+    t0 = time.perf_counter()
+    sim = simulate(study, values)
+    metrics = {}
+    from tubeyield.jobs.optimize import metric_display
+    for met in all_metrics(study):
+        v, unit = metric_display(met, sim.metric(met))
+        metrics[met.text] = {"value": v, "unit": unit}
+    limits = []
+    for lim in study.goal.limits:
+        if lim.metric is None:
+            value_si = sim.max_temperature() if lim.sense == "<=" else sim.min_temperature()
+            si_unit = "K"
+        else:
+            value_si, si_unit = sim.metric(lim.metric), lim.metric.si_unit
+        holds = value_si <= lim.bound * (1 + 1e-9) if lim.sense == "<=" else value_si >= lim.bound * (1 - 1e-9)
+        limits.append({"text": lim.text, "value": convert(value_si, si_unit, lim.unit) if lim.unit else value_si,
+                       "unit": lim.unit, "holds": bool(holds)})
+    flows = sim.outlet_flows()
+    from tubeyield.reactor.balances import concentrations
+    conc = concentrations(study, sim.u_out, sim.T_out, sim.c_s, sim.par)
+    outlet = {s: {"conc": float(conc[s]) / 1000.0, "conc_unit": "mol/L", "flow": flows[s], "flow_unit": "mol/s"}
+              for s in study.symbols}
+    decisions = {}
+    for d in study.decisions:
+        v = values[d.name]
+        decisions[d.name] = {"value": convert(v, d.si_unit, d.unit) if d.unit else v, "unit": d.unit}
+    gval, gunit = metric_display(study.goal.metric, sim.metric(study.goal.metric))
+    status = "meets limits" if violation(study, sim) <= 1e-9 else "misses limits"
+    return Result(status, study.name, {"metric": study.goal.metric.text, "sense": study.goal.sense, "value": gval,
+                                       "unit": gunit},
+                  decisions, metrics, outlet, limits, [], None, {}, {"simulate": time.perf_counter() - t0},
+                  message=sim.integrator, volume_m3=values["tau"] * study.feed.flow, decisions_si=dict(values),
+                  profile=sim.profile())

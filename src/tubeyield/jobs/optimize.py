@@ -1,0 +1,249 @@
+"""The optimize job: the best operating point, what limits it, and proof that the numbers hold.
+
+load -> screened multistart (reference simulation) -> collocation NLP (Ipopt) from each start -> best ->
+re-simulation, refining the mesh until the outlet flows agree -> marginals of active limits and bounds.
+When no start meets the limits, a minimum-violation problem gives the closest point and the conflicting limits.
+"""
+
+from __future__ import annotations
+
+import time
+
+import pyomo.environ as pyo
+
+from tubeyield.reactor import build
+from tubeyield.reactor.metrics import DISPLAY_UNIT, all_metrics
+from tubeyield.reactor.model import ReactorModel
+from tubeyield.reactor.verify import compare, reference
+from tubeyield.solve import OK_CONDITIONS, make_solver
+from tubeyield.solve import multistart
+from tubeyield.solve.marginals import bound_reports, limit_reports
+from tubeyield.jobs.result import Result
+from tubeyield.study.schema import Study
+from tubeyield.study.units import convert
+
+SAME_OPTIMUM = 1e-6    # relative difference of goal values that counts as the same optimum
+
+
+def goal_scale(study: Study, value: float | None) -> float:
+    if study.goal.metric.kind in ("conversion", "yield", "selectivity"):
+        return 1.0
+    return abs(value) if value and abs(value) > 0 else 1.0
+
+
+def prepare(study: Study, elements: int | None = None, scale_hint: float | None = None) -> ReactorModel:
+    """The model with the study's goal and limits."""
+    model = build(study, elements)
+    model.set_goal(study.goal.metric, study.goal.sense, goal_scale(study, scale_hint))
+    model.add_limits(study.goal.limits)
+    return model
+
+
+def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=None, tee: bool = False) -> Result:
+    t_start = time.perf_counter()
+    numerics = study.numerics
+    solver = solver or make_solver(numerics)
+    options = dict(numerics.ipopt)
+    timing = {"screen": 0.0, "build": 0.0, "solve": 0.0, "check": 0.0}
+
+    t = time.perf_counter()
+    candidates = multistart.starts(study, starts or numerics.starts, seed)
+    timing["screen"] = time.perf_counter() - t
+    if not candidates:
+        return _failed(study, "the reference simulation failed at every starting point", timing)
+
+    t = time.perf_counter()
+    model = prepare(study, scale_hint=candidates[0].goal)
+    timing["build"] = time.perf_counter() - t
+
+    runs, best, best_snap = [], None, None
+    for i, cand in enumerate(candidates):
+        model.set_decisions(cand.decisions)
+        model.initialize(cand.simulation)
+        t = time.perf_counter()
+        res = solver.solve(model.m, options=options, reuse_structure=i > 0, tee=tee)
+        timing["solve"] += time.perf_counter() - t
+        ok = res.solver.termination_condition in OK_CONDITIONS
+        run = {"start": _user_decisions(study, cand.decisions), "status": str(res.solver.termination_condition),
+               "iterations": solver.last_stats.get("iterations"), "goal": None}
+        if ok:
+            run["goal"] = model.metric_value(study.goal.metric)
+            if best is None or _better(study, run["goal"], best["goal"]):
+                best, best_snap = run, model.snapshot()
+        runs.append(run)
+
+    if best is None:
+        return _infeasible(study, model, solver, options, candidates, runs, timing, t_start)
+
+    model.restore(best_snap)
+    reached = sum(1 for r in runs if r["goal"] is not None and _same(r["goal"], best["goal"]))
+    starts_info = {"n": len(runs), "ok": sum(r["goal"] is not None for r in runs), "reached_best": reached,
+                   "runs": runs}
+    model, check, sim, timing = _verify_and_refine(study, model, solver, options, timing, tee)
+    result = _result(study, model, "optimal", check, starts_info, timing, t_start)
+    if not check.passed:
+        result.warnings.append(f"the re-simulation differs by {check.max_rel_error:.2e} (tolerance "
+                               f"{check.tolerance:.0e}) even at {check.elements} elements; treat the numbers with care")
+    return result
+
+
+def _better(study: Study, a: float, b: float) -> bool:
+    return a > b if study.goal.sense == "max" else a < b
+
+
+def _same(a: float, b: float) -> bool:
+    return abs(a - b) <= SAME_OPTIMUM * max(1.0, abs(b))
+
+
+def _verify_and_refine(study, model, solver, options, timing, tee):
+    """Re-simulate; while the outlet flows differ by more than the tolerance, double the elements and re-solve
+    from the refined simulation (automatic, up to numerics.max_elements)."""
+    tol = study.numerics.check_tolerance
+    t = time.perf_counter()
+    sim = reference(model)
+    check = compare(model, sim, tol)
+    timing["check"] += time.perf_counter() - t
+    refinements = 0
+    while not check.passed and model.elements * 2 <= study.numerics.max_elements:
+        decisions = model.decision_values()
+        T_fun = model.temperature_function()
+        t = time.perf_counter()
+        finer = prepare(study, model.elements * 2, scale_hint=model.goal_scale)
+        timing["build"] += time.perf_counter() - t
+        if "T" in finer.decisions and finer.decisions["T"].profile:
+            decisions["T"] = [T_fun(z) for z in finer.inner]
+        finer.set_decisions(decisions)
+        finer.initialize(sim)
+        t = time.perf_counter()
+        res = solver.solve(finer.m, options=options, tee=tee)
+        timing["solve"] += time.perf_counter() - t
+        if res.solver.termination_condition not in OK_CONDITIONS:
+            break
+        refinements += 1
+        model = finer
+        t = time.perf_counter()
+        sim = reference(model)
+        check = compare(model, sim, tol)
+        timing["check"] += time.perf_counter() - t
+    check.refinements = refinements
+    return model, check, sim, timing
+
+
+# ---------------------------------------------------------------------------------------------------- infeasible
+
+
+def _infeasible(study, model, solver, options, candidates, runs, timing, t_start) -> Result:
+    """Minimize the total violation of the limits: the closest point, and which limits cannot hold together."""
+    if not study.goal.limits:
+        return _failed(study, "Ipopt did not converge from any start: " + ", ".join(r["status"] for r in runs),
+                       timing, runs)
+    elastic = build(study, model.elements)
+    slacks = elastic.add_elastic_limits(study.goal.limits)
+    elastic.m.goal = pyo.Objective(expr=sum(slacks), sense=pyo.minimize)
+    elastic.goal_metric, elastic.goal_sense, elastic.goal_scale = study.goal.metric, "min", 1.0
+    start = min(candidates, key=lambda c: c.violation)
+    elastic.set_decisions(start.decisions)
+    elastic.initialize(start.simulation)
+    for slack, lim in zip(slacks, study.goal.limits):
+        slack.set_value(0.0)
+    t = time.perf_counter()
+    res = solver.solve(elastic.m, options=options)
+    timing["solve"] += time.perf_counter() - t
+    starts_info = {"n": len(runs), "ok": 0, "reached_best": 0, "runs": runs}
+    if res.solver.termination_condition not in OK_CONDITIONS:
+        return _failed(study, "no start converged and the minimum-violation problem failed too "
+                              f"({res.solver.termination_condition})", timing, runs)
+    total = sum(pyo.value(s) for s in slacks)
+    if total <= 1e-7:
+        # A point meeting every limit exists: the starts failed for other reasons. Solve again from it.
+        model.set_decisions(elastic.decision_values())
+        model.initialize(reference(elastic))
+        res = solver.solve(model.m, options=options, reuse_structure=True)
+        if res.solver.termination_condition in OK_CONDITIONS:
+            model, check, _, timing = _verify_and_refine(study, model, solver, options, timing, False)
+            starts_info["ok"] = starts_info["reached_best"] = 1
+            return _result(study, model, "optimal", check, starts_info, timing, t_start)
+        return _failed(study, "a point meeting every limit exists but Ipopt did not converge from it", timing, runs)
+
+    sim = reference(elastic)
+    check = compare(elastic, sim, study.numerics.check_tolerance)
+    result = _result(study, elastic, "infeasible", check, starts_info, timing, t_start)
+    reports = {r["text"]: r for r in result.limits}
+    conflicts = []
+    for slack, lim, lh in zip(slacks, study.goal.limits, elastic.limits):
+        miss = pyo.value(slack) * lh.scale
+        rep = reports[lim.text]
+        if pyo.value(slack) > 1e-7:
+            shown = convert(miss, "K", lim.unit) - convert(0.0, "K", lim.unit) if lim.metric is None and lim.unit else miss
+            conflicts.append({"limit": lim.text, "missed_by": shown, "unit": lim.unit, "holds": False})
+        elif rep["active"]:
+            conflicts.append({"limit": lim.text, "missed_by": 0.0, "unit": lim.unit, "holds": True})
+    result.conflicts = conflicts
+    held = [c["limit"] for c in conflicts if c["holds"]]
+    missed = [f"{c['limit']} (missed by {c['missed_by']:.4g}{' ' + c['unit'] if c['unit'] else ''})"
+              for c in conflicts if not c["holds"]]
+    bounds = [f"{b['decision']} at its {b['side']} bound" for b in result.bounds if b["side"] in ("low", "high")]
+    result.message = ("no operating point within the decision ranges meets every limit. At the closest point "
+                      + "; ".join(missed)
+                      + (f", while {', '.join(held)} hold at their bounds" if held else "")
+                      + (f" and {', '.join(bounds)}" if bounds else "") + ".")
+    result.goal["value"] = None
+    return result
+
+
+def _failed(study, message, timing, runs=()) -> Result:
+    return Result("failed", study.name, {"metric": study.goal.metric.text, "sense": study.goal.sense, "value": None},
+                  {}, {}, {}, [], [], None, {"n": len(runs), "ok": 0, "reached_best": 0, "runs": list(runs)}, timing,
+                  message=message)
+
+
+# -------------------------------------------------------------------------------------------------------- result
+
+
+def _user_decisions(study: Study, values: dict) -> dict:
+    out = {}
+    for name, v in values.items():
+        d = study.decision(name)
+        if isinstance(v, list):
+            out[name] = [convert(x, d.si_unit, d.unit) if d.unit else x for x in v]
+        else:
+            out[name] = convert(v, d.si_unit, d.unit) if d.unit else v
+    return out
+
+
+def metric_display(metric, value_si: float) -> tuple[float, str]:
+    unit = DISPLAY_UNIT.get(metric.kind, "")
+    return (convert(value_si, metric.si_unit, unit) if unit else value_si), unit
+
+
+def _result(study: Study, model: ReactorModel, status: str, check, starts_info: dict, timing: dict,
+            t_start: float) -> Result:
+    values = model.decision_values()
+    decisions = {}
+    for name, v in values.items():
+        d = study.decision(name)
+        conv = (lambda x: convert(x, d.si_unit, d.unit)) if d.unit else (lambda x: x)
+        entry = {"unit": d.unit, "low": conv(d.low), "high": conv(d.high), "fixed": d.fixed}
+        if isinstance(v, list):
+            entry.update(value=[conv(x) for x in v], z=list(model.inner), min=conv(min(v)), max=conv(max(v)))
+        else:
+            entry["value"] = conv(v)
+        decisions[name] = entry
+    metrics = {}
+    for met in all_metrics(study):
+        val, unit = metric_display(met, model.metric_value(met))
+        metrics[met.text] = {"value": val, "unit": unit}
+    gval, gunit = metric_display(study.goal.metric, model.metric_value(study.goal.metric))
+    flows = model.outlet_flows()
+    conc = {s: float(pyo.value(c)) for s, c in model.conc_out.items()}
+    outlet = {s: {"conc": conc[s] / 1000.0, "conc_unit": "mol/L", "flow": flows[s], "flow_unit": "mol/s"}
+              for s in study.symbols}
+    timing = dict(timing)
+    timing["total"] = time.perf_counter() - t_start
+    return Result(status=status, study=study.name,
+                  goal={"metric": study.goal.metric.text, "sense": study.goal.sense, "value": gval, "unit": gunit},
+                  decisions=decisions, metrics=metrics, outlet=outlet,
+                  limits=[r.to_dict() for r in limit_reports(model)], bounds=[b.to_dict() for b in bound_reports(model)],
+                  check=check, starts=starts_info, timing=timing,
+                  volume_m3=float(pyo.value(model.tau_expr())) * study.feed.flow,
+                  decisions_si=values, profile=model.profile())

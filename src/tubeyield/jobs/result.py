@@ -1,0 +1,69 @@
+"""The Result of an optimization or evaluation: what the command line prints, --json writes and reports read."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+from tubeyield import __version__
+
+
+@dataclass
+class Check:
+    """Re-simulation of the optimum with the reference integrator."""
+    max_rel_error: float
+    worst_species: str
+    tolerance: float
+    elements: int
+    integrator: str
+    refinements: int = 0
+
+    @property
+    def passed(self) -> bool:
+        return self.max_rel_error <= self.tolerance
+
+    def to_dict(self):
+        return {"max_rel_error": self.max_rel_error, "worst_species": self.worst_species, "tolerance": self.tolerance,
+                "passed": self.passed, "elements": self.elements, "integrator": self.integrator,
+                "refinements": self.refinements}
+
+
+@dataclass
+class Result:
+    status: str                                   # optimal | infeasible | failed
+    study: str
+    goal: dict                                    # {metric, sense, value, unit}
+    decisions: dict                               # name -> {value, unit, low, high} (profiles: value list + z)
+    metrics: dict                                 # text -> {value, unit}
+    outlet: dict                                  # species -> {conc, conc_unit, flow, flow_unit}
+    limits: list                                  # LimitReport dicts
+    bounds: list                                  # BoundReport dicts
+    check: Check | None
+    starts: dict
+    timing: dict
+    message: str = ""
+    warnings: list = field(default_factory=list)
+    conflicts: list = field(default_factory=list) # infeasible: the limits that cannot hold together
+    volume_m3: float | None = None
+    decisions_si: dict = field(default_factory=dict, repr=False)
+    profile: object = field(default=None, repr=False)     # pandas DataFrame (CSV on disk)
+
+    def to_dict(self) -> dict:
+        return _finite({
+            "tool": f"tubeyield {__version__}", "status": self.status, "study": self.study, "message": self.message,
+            "goal": self.goal, "decisions": self.decisions, "metrics": self.metrics, "outlet": self.outlet,
+            "volume_m3": self.volume_m3, "limits": self.limits, "bounds": self.bounds, "conflicts": self.conflicts,
+            "check": self.check.to_dict() if self.check else None, "starts": self.starts, "timing": self.timing,
+            "warnings": self.warnings, "decisions_si": self.decisions_si,
+        })
+
+
+def _finite(obj):
+    """JSON has no NaN or infinity: write them as null."""
+    if isinstance(obj, float):
+        return obj if math.isfinite(obj) else None
+    if isinstance(obj, dict):
+        return {k: _finite(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_finite(v) for v in obj]
+    return obj

@@ -1,0 +1,334 @@
+"""What every reactor model shares: parameters as pinned variables, scaled decisions, inlet, metrics, goal, limits.
+
+Scaling (so that Ipopt sees numbers near 1): residence time over its upper bound, temperature over the largest
+temperature bound, flows over v0 C_s (see balances.py). Parameters (kinetics, feed, heat transfer) are variables
+pinned by equal bounds: the solver plug-in passes them to casadi as parameters, so a new scenario or a new
+epsilon level changes bounds only and the built solver is reused.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pyomo.environ as pyo
+
+from tubeyield.reactor.balances import concentration_scale, concentrations, inlet
+from tubeyield.reactor.kinetics import Kinetics
+from tubeyield.reactor.metrics import metric_value
+from tubeyield.reactor.parameters import study_parameters
+from tubeyield.study.metric import Limit, Metric
+from tubeyield.study.schema import Study
+
+T_STATE_BOUNDS = (0.05, 20.0)   # scaled temperature states (energy balance): wide, only to keep exp() finite
+
+
+def temperature_scale(study: Study) -> float:
+    """The largest temperature the study names: decision bounds, feed temperature, limits."""
+    temps = [d.high for d in study.decisions if d.si_unit == "K"]
+    temps += [study.feed.T] if study.feed.T else []
+    temps += [lim.bound for lim in study.goal.limits if lim.metric is None]
+    return max(temps) if temps else 300.0
+
+
+@dataclass
+class Handle:
+    """A decision in the model: SI value = scale * variable. A profile decision has one variable per point."""
+    name: str
+    var: object                   # VarData, or a list of VarData (one per point) for a profile
+    scale: float
+    low: float                    # SI bounds from the study
+    high: float
+    profile: bool = False
+
+    def datas(self):
+        return list(self.var) if self.profile else [self.var]
+
+    def expr(self):
+        return self.scale * self.var
+
+    def value(self):
+        vals = [pyo.value(v) * self.scale for v in self.datas()]
+        return vals if self.profile else vals[0]
+
+    def set(self, si_value) -> None:
+        """Set the starting value (clipped into the bounds); a list sets a profile point by point."""
+        vals = si_value if isinstance(si_value, (list, tuple, np.ndarray)) else [si_value] * len(self.datas())
+        for v, x in zip(self.datas(), vals):
+            v.set_value(min(max(float(x), self.low), self.high) / self.scale, skip_validation=True)
+
+    def pin(self, si_value: float) -> None:
+        for v in self.datas():
+            v.setlb(si_value / self.scale)
+            v.setub(si_value / self.scale)
+            v.set_value(si_value / self.scale, skip_validation=True)
+
+    def release(self) -> None:
+        for v in self.datas():
+            v.setlb(self.low / self.scale)
+            v.setub(self.high / self.scale)
+
+    @property
+    def fixed(self) -> bool:
+        return self.low == self.high
+
+
+@dataclass
+class LimitHandle:
+    limit: Limit
+    constraints: list             # ConstraintData, one per point for a temperature limit
+    scale: float                  # constraint = expression_SI / scale
+
+
+class ReactorModel:
+    """Base of the plug-flow and stirred-tank models. Subclasses implement `_build` (states and balances), setting
+    `u_out`, `T_out` (scaled), `T_points` (scaled temperature expressions the limit T applies to)."""
+
+    kind = "base"
+
+    def __init__(self, study: Study, elements: int | None = None):
+        self.study = study
+        self.elements = elements or study.reactor.elements
+        m = self.m = pyo.ConcreteModel(name=study.name)
+        m.dual = pyo.Suffix(direction=pyo.Suffix.IMPORT)
+        m.rc = pyo.Suffix(direction=pyo.Suffix.IMPORT)
+        self.c_ref = concentration_scale(study)
+        self.T_scale = temperature_scale(study)
+        self.tau_scale = study.decision("tau").high
+        values = study_parameters(study)
+        m.P = pyo.Set(initialize=list(values), ordered=True)
+        m.par = pyo.Var(m.P, initialize=values)
+        for k, v in values.items():
+            m.par[k].setlb(v)
+            m.par[k].setub(v)
+        self.par = {k: m.par[k] for k in values}
+        self.kin = Kinetics(study, self.par)
+        self.decisions: dict[str, Handle] = {}
+        self._scalar_decisions()
+        self.u0, self.c_s, balance = inlet(study, self.par, {s: self.m.ratio[s] for s in self.ratio_species},
+                                           self._inlet_temperature(), self.c_ref)
+        if balance is not None:
+            m.balance_nonnegative = pyo.Constraint(expr=balance >= 0)
+        self.limits: list[LimitHandle] = []
+        self.levels: dict[str, tuple[object, float]] = {}
+        self._build()
+        self.conc_out = concentrations(study, self.u_out, self.T_scale * self.T_out, self.c_s, self.par)
+
+    # ------------------------------------------------------------------------------------------------- decisions
+
+    @property
+    def ratio_species(self) -> list[str]:
+        return [d.name[6:] for d in self.study.decisions if d.name.startswith("ratio.")]
+
+    def _scalar_decisions(self) -> None:
+        m, st = self.m, self.study
+        heat = st.reactor.heat
+
+        def scalar(name, component, scale):
+            d = st.decision(name)
+            component.setlb(d.low / scale)
+            component.setub(d.high / scale)
+            component.set_value(0.5 * (d.low + d.high) / scale, skip_validation=True)
+            self.decisions[name] = Handle(name, component, scale, d.low, d.high)
+
+        m.tau = pyo.Var()
+        scalar("tau", m.tau, self.tau_scale)
+        if heat == "isothermal":
+            m.T = pyo.Var()
+            scalar("T", m.T, self.T_scale)
+        elif heat == "zones":
+            m.Tz = pyo.Var(pyo.RangeSet(1, st.reactor.zones))
+            for k in range(1, st.reactor.zones + 1):
+                scalar(f"T.{k}", m.Tz[k], self.T_scale)
+        elif heat in ("adiabatic", "cooled"):
+            m.T_in = pyo.Var()
+            scalar("T_in", m.T_in, self.T_scale)
+            if heat == "cooled":
+                m.T_cool = pyo.Var()
+                scalar("T_cool", m.T_cool, self.T_scale)
+        m.ratio = pyo.Var(self.ratio_species)
+        for s in self.ratio_species:
+            scalar(f"ratio.{s}", m.ratio[s], 1.0)
+
+    def _inlet_temperature(self):
+        heat = self.study.reactor.heat
+        if heat == "isothermal":
+            return self.T_scale * self.m.T
+        if heat == "zones":
+            return self.T_scale * self.m.Tz[1]
+        if heat in ("adiabatic", "cooled"):
+            return self.T_scale * self.m.T_in
+        return None  # free: a gas feed must name its temperature (checked by the loader)
+
+    def tau_expr(self):
+        return self.tau_scale * self.m.tau
+
+    def T_cool_expr(self):
+        return self.T_scale * self.m.T_cool if self.study.reactor.heat == "cooled" else None
+
+    def set_decisions(self, values: dict) -> None:
+        for name, v in values.items():
+            self.decisions[name].set(v)
+
+    def decision_values(self) -> dict:
+        return {name: h.value() for name, h in self.decisions.items()}
+
+    @property
+    def bounded_species(self) -> set[str]:
+        """Species whose scaled flows get a lower bound of zero: those with a fractional order or in an adsorption
+        denominator, where a negative value would make the rate undefined. Others stay unbounded: a bound at zero
+        is where products start, and Ipopt's bound push would move them off the simulated start (measured on the
+        demo: 105 iterations with bounds, 9 without, from the same start)."""
+        out = set()
+        for r in self.study.reactions:
+            out |= {s for s, n in r.orders + r.reverse_orders if n != int(n)}
+            out |= {s for s, _ in r.adsorption}
+        return out
+
+    def free_decisions(self) -> list[Handle]:
+        return [h for h in self.decisions.values() if not h.fixed]
+
+    # ------------------------------------------------------------------------------------------------- parameters
+
+    def set_parameters(self, study: Study) -> None:
+        """Pin the parameters to the values of another study with the same structure (a sweep scenario)."""
+        for k, v in study_parameters(study).items():
+            self.par[k].setlb(v)
+            self.par[k].setub(v)
+            self.par[k].set_value(v, skip_validation=True)
+        for d in study.decisions:
+            h = self.decisions.get(d.name)
+            if h is not None and (h.low, h.high) != (d.low, d.high):
+                h.low, h.high = d.low, d.high
+                h.release()
+        self.study = study
+
+    # ---------------------------------------------------------------------------------------------------- metrics
+
+    def metric(self, metric: Metric):
+        return metric_value(self.study, metric, self.u_out, self.u0, self.tau_expr(), self.c_s, self.conc_out)
+
+    def metric_value(self, metric: Metric) -> float:
+        return float(pyo.value(self.metric(metric)))
+
+    def outlet_flows(self) -> dict[str, float]:
+        """Outlet molar flows, mol/s, at the current values."""
+        scale = pyo.value(self.c_s) * self.study.feed.flow
+        return {s: float(pyo.value(self.u_out[s])) * scale for s in self.study.symbols}
+
+    def inlet_flows(self) -> dict[str, float]:
+        scale = pyo.value(self.c_s) * self.study.feed.flow
+        return {s: float(pyo.value(self.u0[s])) * scale for s in self.study.symbols}
+
+    def temperatures(self) -> list[float]:
+        return [float(pyo.value(t)) * self.T_scale for t in self.T_points]
+
+    # ------------------------------------------------------------------------------------------- goal and limits
+
+    def set_goal(self, metric: Metric, sense: str, scale: float = 1.0) -> None:
+        m = self.m
+        if m.component("goal") is not None:
+            m.del_component("goal")
+        m.goal = pyo.Objective(expr=self.metric(metric) / scale, sense=pyo.maximize if sense == "max" else pyo.minimize)
+        self.goal_metric, self.goal_sense, self.goal_scale = metric, sense, scale
+
+    def add_limits(self, limits) -> None:
+        for i, lim in enumerate(limits):
+            self.limits.append(self._limit(f"limit_{len(self.limits)}", lim))
+
+    def _limit(self, name: str, lim: Limit) -> LimitHandle:
+        m = self.m
+        if lim.metric is None:
+            bound = lim.bound / self.T_scale
+            idx = list(range(len(self.T_points)))
+            rule = (lambda m, k: self.T_points[k] <= bound) if lim.sense == "<=" else (lambda m, k: self.T_points[k] >= bound)
+            con = pyo.Constraint(idx, rule=rule)
+            m.add_component(name, con)
+            return LimitHandle(lim, [con[k] for k in idx], self.T_scale)
+        scale = _metric_scale(lim.metric, lim.bound, self)
+        expr = self.metric(lim.metric) / scale
+        con = pyo.Constraint(expr=expr >= lim.bound / scale if lim.sense == ">=" else expr <= lim.bound / scale)
+        m.add_component(name, con)
+        return LimitHandle(lim, [con], scale)
+
+    def add_elastic_limits(self, limits) -> list:
+        """Limits with a non-negative slack each (one shared by the points of a temperature limit), for the
+        minimum-violation problem that finds the closest point when no point meets every limit. Returns the
+        slack variables; their sum is the violation to minimize (each in the units of its scaled constraint)."""
+        m = self.m
+        slacks = []
+        for i, lim in enumerate(limits):
+            slack = pyo.Var(bounds=(0.0, None), initialize=0.0)
+            m.add_component(f"slack_{i}", slack)
+            name = f"elastic_{i}"
+            if lim.metric is None:
+                bound = lim.bound / self.T_scale
+                idx = list(range(len(self.T_points)))
+                if lim.sense == "<=":
+                    con = pyo.Constraint(idx, rule=lambda m, k: self.T_points[k] - slack <= bound)
+                else:
+                    con = pyo.Constraint(idx, rule=lambda m, k: self.T_points[k] + slack >= bound)
+                m.add_component(name, con)
+                self.limits.append(LimitHandle(lim, [con[k] for k in idx], self.T_scale))
+            else:
+                scale = _metric_scale(lim.metric, lim.bound, self)
+                expr = self.metric(lim.metric) / scale
+                con = pyo.Constraint(expr=expr + slack >= lim.bound / scale if lim.sense == ">=" else
+                                     expr - slack <= lim.bound / scale)
+                m.add_component(name, con)
+                self.limits.append(LimitHandle(lim, [con], scale))
+            slacks.append(slack)
+        return slacks
+
+    def snapshot(self) -> dict:
+        """Values of every variable and the loaded duals and reduced costs, to restore a solution later."""
+        values = [(v, v.value) for v in self.m.component_data_objects(pyo.Var, descend_into=True)]
+        return {"values": values, "dual": list(self.m.dual.items()), "rc": list(self.m.rc.items())}
+
+    def restore(self, snap: dict) -> None:
+        for v, x in snap["values"]:
+            v.set_value(x, skip_validation=True)
+        self.m.dual.clear()
+        self.m.rc.clear()
+        for c, x in snap["dual"]:
+            self.m.dual[c] = x
+        for c, x in snap["rc"]:
+            self.m.rc[c] = x
+
+    def add_level(self, name: str, metric: Metric, sense: str, value: float, scale: float):
+        """A metric bound whose level is a pinned variable (for epsilon-constraint fronts): change it with
+        `set_level` without rebuilding the solver."""
+        m = self.m
+        level = pyo.Var(initialize=value / scale, bounds=(value / scale, value / scale))
+        m.add_component(f"{name}_level", level)
+        expr = self.metric(metric) / scale
+        m.add_component(name, pyo.Constraint(expr=expr >= level if sense == ">=" else expr <= level))
+        self.levels[name] = (level, scale)
+        return level
+
+    def set_level(self, name: str, value: float) -> None:
+        level, scale = self.levels[name]
+        level.setlb(value / scale)
+        level.setub(value / scale)
+        level.set_value(value / scale, skip_validation=True)
+
+    # ------------------------------------------------------------------------------------------------ subclasses
+
+    def _build(self) -> None:
+        raise NotImplementedError
+
+    def initialize(self, sim) -> None:
+        raise NotImplementedError
+
+    def profile(self):
+        raise NotImplementedError
+
+
+def _metric_scale(metric: Metric, bound: float, model: ReactorModel) -> float:
+    if metric.kind in ("conversion", "yield", "selectivity"):
+        return 1.0
+    if abs(bound) > 0:
+        return abs(bound)
+    if metric.kind == "outlet":
+        return model.c_ref
+    return 1.0

@@ -1,0 +1,51 @@
+"""The study's numbers that a sweep may change, by name, and reactions whose constants are those parameters.
+
+In the Pyomo model each parameter is a variable pinned by equal bounds; the solver plug-in hands pinned variables to
+casadi as parameters, so a new scenario changes bounds only and reuses the built solver. In the reference
+simulation the same names hold plain floats.
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+
+from tubeyield.study.schema import Arrhenius, Reaction, Study, VantHoff
+
+
+def study_parameters(study: Study) -> dict[str, float]:
+    """Every number the balances use that is not structural, in SI: kinetics, heat effects, feed, heat transfer."""
+    p: dict[str, float] = {}
+    for r in study.reactions:
+        p[f"lnk:{r.id}"] = r.rate.ln_k_ref
+        p[f"Ea:{r.id}"] = r.rate.Ea
+        p[f"dH:{r.id}"] = r.dH or 0.0
+        if r.equilibrium is not None:
+            p[f"lnK:{r.id}"] = r.equilibrium.ln_K_ref
+        for s, ads in r.adsorption:
+            p[f"lnKa:{r.id}:{s}"] = ads.ln_K_ref
+            p[f"dHa:{r.id}:{s}"] = ads.dH
+    inlet = study.feed.inlet()
+    for s in study.symbols:
+        p[f"in:{s}"] = inlet.get(s, 0.0)
+        p[f"Cp:{s}"] = next(sp.Cp for sp in study.species if sp.symbol == s) or 0.0
+    p["U"] = study.reactor.U or 0.0
+    p["flow"] = study.feed.flow
+    if study.feed.phase == "gas":
+        p["P"] = study.feed.pressure
+    if study.feed.T is not None:
+        p["T_feed"] = study.feed.T
+    return p
+
+
+def parametric_reactions(study: Study, par) -> tuple[Reaction, ...]:
+    """The study's reactions with their constants replaced by `par[name]` (Pyomo variables or floats).
+
+    The reaction's own `rate_expression` then builds the rate from these objects, so the kinetics code is shared.
+    """
+    out = []
+    for r in study.reactions:
+        rate = Arrhenius(par[f"lnk:{r.id}"], r.rate.T_ref, par[f"Ea:{r.id}"])
+        eq = VantHoff(par[f"lnK:{r.id}"], r.equilibrium.T_ref, par[f"dH:{r.id}"]) if r.equilibrium else None
+        ads = tuple((s, VantHoff(par[f"lnKa:{r.id}:{s}"], a.T_ref, par[f"dHa:{r.id}:{s}"])) for s, a in r.adsorption)
+        out.append(replace(r, rate=rate, equilibrium=eq, adsorption=ads, dH=par[f"dH:{r.id}"]))
+    return tuple(out)

@@ -1,0 +1,192 @@
+"""Plug-flow model: orthogonal collocation on finite elements (Radau points) with pyomo.dae.
+
+Heat modes: isothermal (one T), zones (equal zones of whole elements, one T each), free (T at every collocation
+point, bounded: the optimal-control upper bound on what a temperature profile can give), adiabatic and cooled
+(energy balance with heats of reaction, heat capacities and wall heat transfer to a coolant).
+
+References
+----------
+L. T. Biegler, Nonlinear Programming: Concepts, Algorithms, and Applications to Chemical Processes, SIAM 2010,
+ch. 10 (simultaneous collocation on finite elements, Radau points, element placement).
+B. Nicholson, J. D. Siirola, J.-P. Watson, V. M. Zavala and L. T. Biegler, "pyomo.dae: a modeling and automatic
+discretization framework for optimization with differential and algebraic equations", Math. Program. Comput. 10
+(2018) 187-223.
+"""
+
+from __future__ import annotations
+
+import bisect
+
+import numpy as np
+import pyomo.dae as dae
+import pyomo.environ as pyo
+
+from tubeyield.reactor.balances import concentrations, math_for, wall_term
+from tubeyield.reactor.model import T_STATE_BOUNDS, Handle, ReactorModel
+
+
+def element_edges(n: int, grading: float = 1.0) -> list[float]:
+    """n element boundaries on [0, 1]; with grading g the lengths grow geometrically so that last/first = g."""
+    if n == 1:
+        return [0.0, 1.0]
+    if abs(grading - 1.0) < 1e-12:
+        return [i / n for i in range(n)] + [1.0]
+    q = grading ** (1.0 / (n - 1))
+    lengths = q ** np.arange(n)
+    edges = np.concatenate([[0.0], np.cumsum(lengths) / lengths.sum()])
+    edges[-1] = 1.0
+    return edges.tolist()
+
+
+class PlugModel(ReactorModel):
+    kind = "plug"
+
+    def _build(self) -> None:
+        m, st = self.m, self.study
+        rx = st.reactor
+        heat = rx.heat
+        symbols = st.symbols
+        self.edges = element_edges(self.elements, rx.grading)
+        m.z = dae.ContinuousSet(bounds=(0.0, 1.0), initialize=self.edges)
+        m.S = pyo.Set(initialize=symbols, ordered=True)
+        m.J = pyo.Set(initialize=[r.id for r in st.reactions], ordered=True)
+        m.u = pyo.Var(m.S, m.z, bounds=lambda m, s, z: (0.0 if s in self.bounded_species else None, None),
+                      initialize=lambda m, s, z: pyo.value(self.u0[s]))
+        m.du = dae.DerivativeVar(m.u, wrt=m.z)
+        energy = heat in ("adiabatic", "cooled")
+        if energy:
+            m.theta = pyo.Var(m.z, bounds=T_STATE_BOUNDS, initialize=pyo.value(m.T_in))
+            m.dtheta = dae.DerivativeVar(m.theta, wrt=m.z)
+        if heat == "free":
+            d = st.decision("T")
+            m.Tp = pyo.Var(m.z, bounds=(d.low / self.T_scale, d.high / self.T_scale),
+                           initialize=0.5 * (d.low + d.high) / self.T_scale)
+        pyo.TransformationFactory("dae.collocation").apply_to(
+            m, wrt=m.z, nfe=len(self.edges) - 1, ncp=rx.points, scheme="LAGRANGE-RADAU")
+
+        self.points = sorted(m.z)
+        inner = self.points[1:]
+        self.inner = inner
+        if heat == "free":
+            d = st.decision("T")
+            self.decisions["T"] = Handle("T", [m.Tp[z] for z in inner], self.T_scale, d.low, d.high, profile=True)
+
+        theta = self.theta_at
+        tau = self.tau_expr()
+        c_s = self.c_s
+        stoich = self.kin.stoich
+        reactions = self.kin.reactions
+
+        def conc_at(z):
+            return concentrations(st, {s: m.u[s, z] for s in symbols}, self.T_scale * theta(z), c_s, self.par)
+
+        def rate_rule(m, j, z):
+            T = self.T_scale * theta(z)
+            return reactions[self._rx_index[j]].rate_expression(conc_at(z), T, math_for(T))
+
+        self._rx_index = {r.id: i for i, r in enumerate(st.reactions)}
+        m.rate = pyo.Expression(m.J, inner, rule=rate_rule)
+
+        def ode(m, s, z):
+            production = sum(stoich[self._rx_index[j]].get(s, 0.0) * m.rate[j, z] for j in m.J
+                             if stoich[self._rx_index[j]].get(s, 0.0))
+            return m.du[s, z] == tau * production / c_s
+
+        m.mole_balance = pyo.Constraint(m.S, inner, rule=ode)
+        m.inlet = pyo.Constraint(m.S, rule=lambda m, s: m.u[s, 0.0] == self.u0[s])
+
+        if energy:
+            cp_scale = max(float(pyo.value(self.kin.flow_heat_capacity(self.u0))), 1e-12)
+            self.cp_scale = cp_scale
+
+            def energy_rule(m, z):
+                T = self.T_scale * m.theta[z]
+                q = sum(-reactions[i].heat_of_reaction(T, self.kin.dCp[i]) * m.rate[j, z] for j, i in self._rx_index.items())
+                q = q + wall_term(st, self.par, T, self.T_cool_expr())
+                heat_capacity = self.kin.flow_heat_capacity({s: m.u[s, z] for s in symbols})
+                return heat_capacity * m.dtheta[z] / cp_scale == tau * q / (c_s * self.T_scale * cp_scale)
+
+            m.energy_balance = pyo.Constraint(inner, rule=energy_rule)
+            m.inlet_T = pyo.Constraint(expr=m.theta[0.0] == m.T_in)
+
+        self.u_out = {s: m.u[s, 1.0] for s in symbols}
+        self.T_out = theta(1.0)
+        if heat == "isothermal":
+            self.T_points = [m.T]
+        elif heat == "zones":
+            self.T_points = [m.Tz[k] for k in range(1, rx.zones + 1)]
+        elif heat == "free":
+            self.T_points = [m.Tp[z] for z in inner]
+        else:
+            self.T_points = [m.theta[z] for z in self.points]
+
+    # ---------------------------------------------------------------------------------------------------- helpers
+
+    def element_of(self, z: float) -> int:
+        """Index of the element whose interior or right end holds z (Radau points belong to their right end)."""
+        k = bisect.bisect_left(self.edges, z - 1e-12) - 1
+        return min(max(k, 0), len(self.edges) - 2)
+
+    def zone_of(self, z: float) -> int:
+        per_zone = (len(self.edges) - 1) // self.study.reactor.zones
+        return self.element_of(z) // per_zone + 1
+
+    def theta_at(self, z):
+        m, heat = self.m, self.study.reactor.heat
+        if heat == "isothermal":
+            return m.T
+        if heat == "zones":
+            return m.Tz[self.zone_of(z)]
+        if heat == "free":
+            return m.Tp[z if z > 0 else self.points[1]]
+        return m.theta[z]
+
+    def temperature_function(self):
+        """T(z) in K at the current values, as the reference simulation needs it (None when T is a state)."""
+        from tubeyield.reactor.simulate import CollocationProfile, PiecewiseConstant
+        heat = self.study.reactor.heat
+        if heat == "zones":
+            zones = self.study.reactor.zones
+            per = (len(self.edges) - 1) // zones
+            edges = [self.edges[k * per] for k in range(zones)] + [1.0]
+            return PiecewiseConstant(edges, [pyo.value(self.m.Tz[k]) * self.T_scale for k in range(1, zones + 1)])
+        if heat == "free":
+            return CollocationProfile(self.edges, self.study.reactor.points,
+                                      [pyo.value(self.m.Tp[z]) * self.T_scale for z in self.inner])
+        return None
+
+    # ---------------------------------------------------------------------------------------------- initialization
+
+    def initialize(self, sim) -> None:
+        """Start values from a reference simulation at the current decisions: states and their derivatives."""
+        m = self.m
+        z = np.array(self.points)
+        states = sim.states_at(z)
+        for s in self.study.symbols:
+            for zi, v in zip(self.points, states[s]):
+                m.u[s, zi].set_value(max(float(v), 0.0), skip_validation=True)
+        derivs = sim.derivatives_at(z)
+        for s in self.study.symbols:
+            for zi, v in zip(self.points, derivs[s]):
+                m.du[s, zi].set_value(float(v), skip_validation=True)
+        if self.study.reactor.heat in ("adiabatic", "cooled"):
+            for zi, v, dv in zip(self.points, states["T"], derivs["T"]):
+                m.theta[zi].set_value(float(v) / self.T_scale, skip_validation=True)
+                m.dtheta[zi].set_value(float(dv) / self.T_scale, skip_validation=True)
+
+    # --------------------------------------------------------------------------------------------------- profiles
+
+    def profile(self):
+        """Axial profile at the current values: one row per collocation point."""
+        import pandas as pd
+        st = self.study
+        tau = float(pyo.value(self.tau_expr()))
+        rows = []
+        for z in self.points:
+            T = float(pyo.value(self.theta_at(z))) * self.T_scale
+            u = {s: float(pyo.value(self.m.u[s, z])) for s in st.symbols}
+            conc = concentrations(st, u, T, float(pyo.value(self.c_s)), {k: pyo.value(v) for k, v in self.par.items()})
+            row = {"z": z, "residence_time_s": z * tau, "volume_m3": z * tau * st.feed.flow, "T_K": T}
+            row.update({f"C_{s}_mol_per_m3": conc[s] for s in st.symbols})
+            rows.append(row)
+        return pd.DataFrame(rows)

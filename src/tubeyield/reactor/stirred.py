@@ -1,0 +1,111 @@
+"""Stirred-tank models: one ideal tank, or N equal tanks in series, each with its own steady-state balances.
+
+References
+----------
+O. Levenspiel, Chemical Reaction Engineering, 3rd ed., Wiley 1999, ch. 5-6 (mixed flow reactors and tanks in series).
+H. S. Fogler, Elements of Chemical Reaction Engineering, 5th ed., Pearson 2016, ch. 11-12 (steady-state energy balance
+of a stirred tank with heat exchange).
+"""
+
+from __future__ import annotations
+
+import pyomo.environ as pyo
+
+from tubeyield.reactor.balances import concentrations, math_for, wall_term
+from tubeyield.reactor.model import T_STATE_BOUNDS, ReactorModel
+
+
+class StirredModel(ReactorModel):
+    kind = "stirred"
+
+    def _build(self) -> None:
+        m, st = self.m, self.study
+        rx = st.reactor
+        symbols = st.symbols
+        n = rx.tanks if rx.kind == "stirred-series" else 1
+        self.n_tanks = n
+        m.K = pyo.RangeSet(1, n)
+        m.S = pyo.Set(initialize=symbols, ordered=True)
+        m.J = pyo.Set(initialize=[r.id for r in st.reactions], ordered=True)
+        m.u = pyo.Var(m.S, m.K, bounds=lambda m, s, k: (0.0 if s in self.bounded_species else None, None),
+                      initialize=lambda m, s, k: pyo.value(self.u0[s]))
+        energy = rx.heat in ("adiabatic", "cooled")
+        if energy:
+            m.theta = pyo.Var(m.K, bounds=T_STATE_BOUNDS, initialize=pyo.value(m.T_in))
+        tau_k = self.tau_expr() / n
+        c_s = self.c_s
+        reactions = self.kin.reactions
+        index = {r.id: i for i, r in enumerate(st.reactions)}
+        stoich = self.kin.stoich
+
+        def theta(k):
+            return m.theta[k] if energy else m.T
+
+        def u_before(s, k):
+            return self.u0[s] if k == 1 else m.u[s, k - 1]
+
+        def rate_rule(m, j, k):
+            T = self.T_scale * theta(k)
+            conc = concentrations(st, {s: m.u[s, k] for s in symbols}, T, c_s, self.par)
+            return reactions[index[j]].rate_expression(conc, T, math_for(T))
+
+        m.rate = pyo.Expression(m.J, m.K, rule=rate_rule)
+
+        def balance(m, s, k):
+            production = sum(stoich[index[j]].get(s, 0.0) * m.rate[j, k] for j in m.J if stoich[index[j]].get(s, 0.0))
+            return m.u[s, k] - u_before(s, k) == tau_k * production / c_s
+
+        m.mole_balance = pyo.Constraint(m.S, m.K, rule=balance)
+
+        if energy:
+            cp_scale = max(float(pyo.value(self.kin.flow_heat_capacity(self.u0))), 1e-12)
+
+            def energy_rule(m, k):
+                T = self.T_scale * m.theta[k]
+                q = sum(-reactions[i].heat_of_reaction(T, self.kin.dCp[i]) * m.rate[j, k] for j, i in index.items())
+                q = q + wall_term(st, self.par, T, self.T_cool_expr())
+                before = m.T_in if k == 1 else m.theta[k - 1]
+                heat_capacity = self.kin.flow_heat_capacity({s: u_before(s, k) for s in symbols})
+                return heat_capacity * (m.theta[k] - before) / cp_scale == tau_k * q / (c_s * self.T_scale * cp_scale)
+
+            m.energy_balance = pyo.Constraint(m.K, rule=energy_rule)
+
+        self.u_out = {s: m.u[s, n] for s in symbols}
+        self.T_out = theta(n)
+        self.T_points = [m.theta[k] for k in m.K] if energy else [m.T]
+        self._theta = theta
+
+    def temperature_function(self):
+        return None
+
+    def tank_states(self) -> list[dict]:
+        out = []
+        for k in range(1, self.n_tanks + 1):
+            tank = {s: float(pyo.value(self.m.u[s, k])) for s in self.study.symbols}
+            tank["T"] = float(pyo.value(self._theta(k))) * self.T_scale
+            out.append(tank)
+        return out
+
+    def initialize(self, sim) -> None:
+        m = self.m
+        for k in range(1, self.n_tanks + 1):
+            for s in self.study.symbols:
+                m.u[s, k].set_value(max(float(sim.tanks[k - 1][s]), 0.0), skip_validation=True)
+            if self.study.reactor.heat in ("adiabatic", "cooled"):
+                m.theta[k].set_value(sim.tanks[k - 1]["T"] / self.T_scale, skip_validation=True)
+
+    def profile(self):
+        import pandas as pd
+        st = self.study
+        tau = float(pyo.value(self.tau_expr()))
+        par = {k: pyo.value(v) for k, v in self.par.items()}
+        rows = []
+        for k in range(1, self.n_tanks + 1):
+            T = float(pyo.value(self._theta(k))) * self.T_scale
+            u = {s: float(pyo.value(self.m.u[s, k])) for s in st.symbols}
+            conc = concentrations(st, u, T, float(pyo.value(self.c_s)), par)
+            row = {"tank": k, "residence_time_s": k * tau / self.n_tanks,
+                   "volume_m3": k * tau * st.feed.flow / self.n_tanks, "T_K": T}
+            row.update({f"C_{s}_mol_per_m3": conc[s] for s in st.symbols})
+            rows.append(row)
+        return pd.DataFrame(rows)

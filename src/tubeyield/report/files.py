@@ -1,0 +1,44 @@
+"""Writing results to disk: every file is written to a temporary name and renamed, so no partial file is left."""
+
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+from pathlib import Path
+
+
+def write_atomic(path: Path, text: str | bytes) -> None:
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    mode = "wb" if isinstance(text, bytes) else "w"
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    try:
+        with os.fdopen(fd, mode, **({} if mode == "wb" else {"encoding": "utf-8"})) as fh:
+            fh.write(text)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+
+
+def write_json(path: Path, obj) -> None:
+    write_atomic(path, json.dumps(obj, indent=2, allow_nan=False, default=str) + "\n")
+
+
+def save_inputs(directory: Path, study) -> None:
+    """The study text and included network files as read, so a report can be rebuilt and reproduced."""
+    directory = Path(directory)
+    write_atomic(directory / "inputs" / (Path(study.path).name or "study.toml"), study.source)
+    for path, text in study.includes:
+        write_atomic(directory / "inputs" / Path(path).name, text)
+
+
+def save_result(directory: Path, name: str, result, study) -> None:
+    """<dir>/<name>.json and, when the result has a profile, <dir>/<name>-profile.csv; and the inputs."""
+    directory = Path(directory)
+    write_json(directory / f"{name}.json", result.to_dict())
+    if result.profile is not None:
+        write_atomic(directory / f"{name}-profile.csv", result.profile.to_csv(index=False))
+    save_inputs(directory, study)

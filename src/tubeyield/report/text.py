@@ -1,0 +1,104 @@
+"""Terminal summaries of results: plain text, aligned columns, units everywhere."""
+
+from __future__ import annotations
+
+CAUTION = ("Model predictions only: verify with calorimetry and a hazard study before any design or operation; "
+           "follow local codes and licensed engineering practice.")
+
+
+def _fmt(v, digits: int = 5) -> str:
+    if v is None:
+        return "-"
+    if isinstance(v, float):
+        return f"{v:.{digits}g}"
+    return str(v)
+
+
+def _decision_lines(result) -> list[str]:
+    lines = []
+    width = max((len(n) for n in result.decisions), default=4)
+    at_bound = {(b["decision"], b["side"]) for b in result.bounds}
+    for name, d in result.decisions.items():
+        if isinstance(d["value"], list):
+            val = f"profile {_fmt(d['min'])} to {_fmt(d['max'])} {d['unit']}"
+        else:
+            val = f"{_fmt(d['value'])} {d['unit']}".rstrip()
+        rng = "fixed" if d.get("fixed") else (f"[{_fmt(d['low'])}, {_fmt(d['high'])}]" if "low" in d else "")
+        flag = "  at lower bound" if (name, "low") in at_bound else "  at upper bound" if (name, "high") in at_bound else ""
+        lines.append(f"  {name:<{width}}  {val:<24} {rng}{flag}")
+    return lines
+
+
+def optimum_summary(result) -> str:
+    g = result.goal
+    out = [f"{result.study}: {result.status}  ({'maximize' if g['sense'] == 'max' else 'minimize'} {g['metric']})"]
+    if result.message:
+        out.append(f"  {result.message}")
+    if g.get("value") is not None:
+        out.append(f"  {g['metric']} = {_fmt(g['value'], 6)} {g.get('unit', '')}".rstrip())
+    if result.decisions:
+        out += ["", "operating point" if result.status == "optimal" else "closest operating point"]
+        out += _decision_lines(result)
+        if result.volume_m3 is not None:
+            out.append(f"  reactor volume {_fmt(result.volume_m3 * 1000.0)} L")
+    if result.metrics:
+        out += ["", "outlet"]
+        width = max(len(k) for k in result.metrics)
+        for k, m in result.metrics.items():
+            out.append(f"  {k:<{width}}  {_fmt(m['value'])} {m['unit']}".rstrip())
+    rows = [(lim["text"], _fmt(lim["value"]) + (f" {lim['unit']}" if lim["unit"] else ""), lim["marginal"],
+             lim["marginal_unit"]) for lim in result.limits if lim.get("active")]
+    rows += [(f"{b['decision']} {'lower' if b['side'] == 'low' else 'upper'} bound" if b["side"] != "fixed"
+              else f"{b['decision']} (fixed)", f"{_fmt(b['bound'])} {b['unit']}".rstrip(), b["marginal"],
+              b["marginal_unit"]) for b in result.bounds]
+    if result.status == "optimal":
+        out += ["", "what limits the optimum"]
+        if rows:
+            w = max(len(r[0]) for r in rows)
+            for name, value, marginal, unit in rows:
+                out.append(f"  {name:<{w}}  {value:<14} marginal {marginal:+.4g} {unit}")
+            inactive = [lim["text"] for lim in result.limits if not lim.get("active")]
+            if inactive:
+                out.append(f"  not binding: {', '.join(inactive)}")
+        else:
+            out.append("  nothing: the optimum is interior (no limit or bound is active)")
+    if result.conflicts:
+        out += ["", "conflicting limits"]
+        for c in result.conflicts:
+            state = "holds at its bound" if c["holds"] else f"missed by {_fmt(c['missed_by'])} {c['unit']}".rstrip()
+            out.append(f"  {c['limit']}: {state}")
+    if result.check is not None:
+        c = result.check
+        out += ["", "verification",
+                f"  re-simulated ({c.integrator}): largest outlet-flow difference {c.max_rel_error:.2e} "
+                f"({c.worst_species}), tolerance {c.tolerance:.0e}: {'passed' if c.passed else 'NOT passed'}",
+                f"  mesh {c.elements} elements" + (f" after {c.refinements} refinement(s)" if c.refinements else "")]
+    if result.starts.get("n"):
+        s = result.starts
+        out.append(f"starts: {s['ok']} of {s['n']} converged, {s['reached_best']} reached the best point")
+    t = result.timing
+    if "total" in t:
+        out.append("time: " + f"{t['total']:.2f} s (" + ", ".join(f"{k} {v:.2f}" for k, v in t.items() if k != "total") + ")")
+    for w in result.warnings:
+        out.append(f"warning: {w}")
+    out += ["", CAUTION]
+    return "\n".join(out)
+
+
+def evaluation_summary(result, notes=()) -> str:
+    g = result.goal
+    out = [f"{result.study}: simulated operating point ({result.status})"]
+    out += [f"  note: {n}" for n in notes]
+    out += ["", "operating point"] + _decision_lines(result)
+    out.append(f"  reactor volume {_fmt(result.volume_m3 * 1000.0)} L")
+    out += ["", "outlet"]
+    width = max(len(k) for k in result.metrics)
+    for k, m in result.metrics.items():
+        out.append(f"  {k:<{width}}  {_fmt(m['value'])} {m['unit']}".rstrip())
+    if result.limits:
+        out += ["", "limits"]
+        for lim in result.limits:
+            out.append(f"  {lim['text']:<28} {_fmt(lim['value'])} {lim['unit']:<4} {'holds' if lim['holds'] else 'MISSED'}")
+    out.append(f"\n{result.message}")
+    out += ["", CAUTION]
+    return "\n".join(out)

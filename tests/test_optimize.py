@@ -1,0 +1,175 @@
+"""The optimize job: marginals against finite differences, the optimum against scipy.optimize on the reference
+simulation, infeasible studies, the command line."""
+
+import dataclasses
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+from scipy.optimize import minimize
+
+from helpers import SCENARIOS, study_from_toml
+from tubeyield.jobs.optimize import optimize
+from tubeyield.reactor.simulate import simulate
+from tubeyield.study import load_study
+from tubeyield.study.metric import Limit
+
+
+@pytest.fixture(scope="module")
+def demo():
+    return load_study(SCENARIOS / "oxidation.toml")
+
+
+@pytest.fixture(scope="module")
+def demo_optimum(demo):
+    return optimize(demo)
+
+
+def _with_limit(study, text, bound):
+    limits = tuple(dataclasses.replace(lim, bound=bound) if lim.text == text else lim for lim in study.goal.limits)
+    return dataclasses.replace(study, goal=dataclasses.replace(study.goal, limits=limits))
+
+
+def test_demo_optimum_is_verified_and_reproducible(demo_optimum):
+    r = demo_optimum
+    assert r.status == "optimal" and r.check.passed and r.check.max_rel_error < 1e-8
+    assert r.starts["reached_best"] >= 2
+    active = {lim["text"] for lim in r.limits if lim["active"]}
+    assert active == {"conversion:A >= 0.80", "yield:C <= 0.10"}
+    for lim in r.limits:                          # every limit holds at the optimum
+        if lim["text"].startswith("conversion"):
+            assert lim["value"] >= 0.80 - 1e-7
+        if lim["text"].startswith("yield:C"):
+            assert lim["value"] <= 0.10 + 1e-7
+
+
+@pytest.mark.parametrize("text", ["conversion:A >= 0.80", "yield:C <= 0.10"])
+def test_limit_marginals_match_finite_differences(demo, demo_optimum, text):
+    # Envelope theorem (Luenberger and Ye, Linear and Nonlinear Programming, 4th ed. 2016, sec. 11.8): the dual is
+    # d goal*/d bound. Central difference with step h on the bound.
+    marginal = next(lim["marginal"] for lim in demo_optimum.limits if lim["text"] == text)
+    base = next(lim.bound for lim in demo.goal.limits if lim.text == text)
+    h = 1e-4
+    up = optimize(_with_limit(demo, text, base + h)).goal["value"]
+    down = optimize(_with_limit(demo, text, base - h)).goal["value"]
+    assert marginal == pytest.approx((up - down) / (2 * h), rel=1e-3)
+
+
+def test_decision_bound_marginal_matches_finite_difference(demo, demo_optimum):
+    bound = next(b for b in demo_optimum.bounds if b["decision"] == "ratio.O")
+    assert bound["side"] == "high"
+    h = 1e-3
+    d = demo.decision("ratio.O")
+
+    def at(high):
+        decisions = tuple(dataclasses.replace(x, high=high) if x.name == "ratio.O" else x for x in demo.decisions)
+        return optimize(dataclasses.replace(demo, decisions=decisions)).goal["value"]
+
+    assert bound["marginal"] == pytest.approx((at(d.high + h) - at(d.high - h)) / (2 * h), rel=1e-3)
+
+
+def test_temperature_limit_marginal_per_kelvin():
+    # The T limit holds along the whole reactor; its marginal is per K of the limit.
+    text = (SCENARIOS / "oxidation.toml").read_text().replace('"T <= 400 K"', '"T <= 335 K"')
+    net = (SCENARIOS / "oxidation-network.toml").read_text()
+    study = study_from_toml(text.replace('include = "oxidation-network.toml"', "") + net)
+    res = optimize(study)
+    lim = next(x for x in res.limits if x["text"] == "T <= 335 K")
+    assert lim["active"] and lim["marginal_unit"] == "yield:B per K" and lim["marginal"] > 0
+    h = 0.05
+    up = optimize(_with_limit(study, "T <= 335 K", 335 + h)).goal["value"]
+    down = optimize(_with_limit(study, "T <= 335 K", 335 - h)).goal["value"]
+    assert lim["marginal"] == pytest.approx((up - down) / (2 * h), rel=1e-3)
+
+
+def test_optimum_agrees_with_scipy_on_the_reference_simulation(demo, demo_optimum):
+    # An independent optimizer (SLSQP, finite-difference gradients) on the scipy simulation, from its own start.
+    names = ["tau", "T", "ratio.O"]
+    lo = np.array([demo.decision(n).low for n in names])
+    hi = np.array([demo.decision(n).high for n in names])
+    limits = demo.goal.limits
+
+    def point(x):
+        return dict(zip(names, lo + x * (hi - lo)))
+
+    def sim(x):
+        return simulate(demo, point(x))
+
+    def cons(x):
+        s = sim(x)
+        out = []
+        for lim in limits:
+            v = s.max_temperature() if lim.metric is None else s.metric(lim.metric)
+            scale = lim.bound if lim.metric is None else 1.0
+            out.append(((lim.bound - v) if lim.sense == "<=" else (v - lim.bound)) / scale)
+        return np.array(out)
+
+    res = minimize(lambda x: -sim(x).metric(demo.goal.metric), x0=np.array([0.02, 0.4, 0.8]), method="SLSQP",
+                   bounds=[(0, 1)] * 3, constraints={"type": "ineq", "fun": cons},
+                   options={"ftol": 1e-12, "maxiter": 300, "eps": 1e-7})
+    assert res.success, res.message
+    assert -res.fun == pytest.approx(demo_optimum.goal["value"], rel=1e-5)
+    assert point(res.x)["T"] == pytest.approx(demo_optimum.decisions_si["T"], rel=1e-3)
+
+
+def test_infeasible_study_names_conflicting_limits(demo):
+    limits = (Limit("conversion:A >= 0.99", demo.goal.limits[0].metric, ">=", 0.99, ""),
+              Limit("yield:C <= 0.02", demo.goal.limits[1].metric, "<=", 0.02, ""))
+    study = dataclasses.replace(demo, goal=dataclasses.replace(demo.goal, limits=limits))
+    res = optimize(study)
+    assert res.status == "infeasible"
+    names = {c["limit"] for c in res.conflicts}
+    assert names == {"conversion:A >= 0.99", "yield:C <= 0.02"}
+    assert any(not c["holds"] and c["missed_by"] > 0 for c in res.conflicts)
+    assert "no operating point" in res.message
+
+
+def _cli(*args):
+    return subprocess.run([sys.executable, "-m", "tubeyield", *args], capture_output=True, text=True, timeout=300)
+
+
+def test_cli_optimize_prints_point_limits_and_check():
+    r = _cli("optimize", str(SCENARIOS / "oxidation.toml"))
+    assert r.returncode == 0, r.stderr
+    for text in ("operating point", "what limits the optimum", "conversion:A >= 0.80", "marginal",
+                 "verification", "passed", "calorimetry"):
+        assert text in r.stdout
+
+
+def test_cli_optimize_json_and_save(tmp_path):
+    r = _cli("optimize", str(SCENARIOS / "oxidation.toml"), "--json", "--save", str(tmp_path))
+    assert r.returncode == 0, r.stderr
+    data = json.loads(r.stdout)
+    assert data["status"] == "optimal" and set(data["decisions"]) == {"tau", "T", "ratio.O"}
+    assert data["check"]["passed"] and data["timing"]["total"] > 0
+    assert (tmp_path / "optimum.json").exists() and (tmp_path / "optimum-profile.csv").exists()
+    assert (tmp_path / "inputs" / "oxidation.toml").exists() and (tmp_path / "inputs" / "oxidation-network.toml").exists()
+
+
+def test_cli_infeasible_exit_3(tmp_path):
+    text = (SCENARIOS / "oxidation.toml").read_text().replace('"conversion:A >= 0.80", "yield:C <= 0.10"',
+                                                               '"conversion:A >= 0.99", "yield:C <= 0.02"')
+    (tmp_path / "s.toml").write_text(text)
+    (tmp_path / "oxidation-network.toml").write_text((SCENARIOS / "oxidation-network.toml").read_text())
+    r = _cli("optimize", str(tmp_path / "s.toml"))
+    assert r.returncode == 3
+    assert "infeasible" in r.stdout and "conflicting limits" in r.stdout
+
+
+def test_cli_simulate_sets_decisions(tmp_path):
+    csv = tmp_path / "p.csv"
+    r = _cli("simulate", str(SCENARIOS / "oxidation.toml"), "--set", "tau=120s", "--set", "T=340K",
+             "--profile", str(csv), "--json")
+    assert r.returncode == 0, r.stderr
+    data = json.loads(r.stdout)
+    assert data["decisions"]["tau"]["value"] == pytest.approx(2.0)       # 120 s shown in the study's unit, min
+    assert data["decisions"]["T"]["value"] == pytest.approx(340.0)
+    assert any("ratio.O not set" in n for n in data["notes"])
+    assert csv.read_text().startswith("z,residence_time_s")
+
+
+def test_cli_simulate_bad_setting_is_user_error():
+    r = _cli("simulate", str(SCENARIOS / "oxidation.toml"), "--set", "tau=hot")
+    assert r.returncode == 2 and r.stderr.startswith("error: --set tau:") and "Traceback" not in r.stderr
