@@ -20,7 +20,7 @@ from tubeyield.solve import multistart
 from tubeyield.solve.marginals import bound_reports, limit_reports
 from tubeyield.jobs.result import Result
 from tubeyield.study.schema import Study
-from tubeyield.study.units import convert
+from tubeyield.study.units import convert, unit_step
 
 SAME_OPTIMUM = 1e-6    # relative difference of goal values that counts as the same optimum
 
@@ -56,6 +56,17 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
     model = prepare(study, scale_hint=candidates[0].goal)
     timing["build"] = time.perf_counter() - t
 
+    closest = None
+    if candidates[0].violation > 0:
+        # Phase 1: no screened point meets every limit. Minimize the violation first; if it stays positive the
+        # study is infeasible, and no local solve from infeasible starts is needed to say so.
+        closest = _closest_point(study, model.elements, solver, options, candidates, timing)
+        if closest is None:
+            return _failed(study, "the minimum-violation problem (phase 1) did not converge", timing)
+        if closest.total > FEASIBLE_VIOLATION:
+            return _infeasible(study, closest, timing, t_start)
+        candidates = [closest.as_candidate()] + candidates[:-1]
+
     runs, best, best_snap = [], None, None
     for i, cand in enumerate(candidates):
         model.set_decisions(cand.decisions)
@@ -73,7 +84,12 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
         runs.append(run)
 
     if best is None:
-        return _infeasible(study, model, solver, options, candidates, runs, timing, t_start)
+        if closest is None and study.goal.limits:
+            closest = _closest_point(study, model.elements, solver, options, candidates, timing)
+        if closest is not None and closest.total > FEASIBLE_VIOLATION:
+            return _infeasible(study, closest, timing, t_start, runs)
+        return _failed(study, "Ipopt did not converge from any start: " + ", ".join(r["status"] for r in runs),
+                       timing, runs)
 
     model.restore(best_snap)
     reached = sum(1 for r in runs if r["goal"] is not None and _same(r["goal"], best["goal"]))
@@ -131,59 +147,77 @@ def _verify_and_refine(study, model, solver, options, timing, tee):
 
 # ---------------------------------------------------------------------------------------------------- infeasible
 
+FEASIBLE_VIOLATION = 1e-7     # total scaled violation below which the limits count as met
 
-def _infeasible(study, model, solver, options, candidates, runs, timing, t_start) -> Result:
-    """Minimize the total violation of the limits: the closest point, and which limits cannot hold together."""
-    if not study.goal.limits:
-        return _failed(study, "Ipopt did not converge from any start: " + ", ".join(r["status"] for r in runs),
-                       timing, runs)
-    elastic = build(study, model.elements)
+
+class _Closest:
+    """The minimum-violation point: its model, slacks and total violation."""
+
+    def __init__(self, model, slacks):
+        self.model = model
+        self.slacks = slacks
+        self.total = float(sum(pyo.value(x) for x in slacks))
+
+    def as_candidate(self):
+        from tubeyield.solve.multistart import Candidate
+        sim = reference(self.model)
+        return Candidate(self.model.decision_values(), sim, sim.metric(self.model.study.goal.metric), 0.0)
+
+
+def _closest_point(study, elements, solver, options, candidates, timing) -> "_Closest | None":
+    """Minimize the total violation of the limits (each scaled like its constraint) over the decision ranges,
+    from each of the least-violating screened points (the problem is nonconvex too); the smallest wins."""
+    elastic = build(study, elements)
     slacks = elastic.add_elastic_limits(study.goal.limits)
     elastic.m.goal = pyo.Objective(expr=sum(slacks), sense=pyo.minimize)
     elastic.goal_metric, elastic.goal_sense, elastic.goal_scale = study.goal.metric, "min", 1.0
-    start = min(candidates, key=lambda c: c.violation)
-    elastic.set_decisions(start.decisions)
-    elastic.initialize(start.simulation)
-    for slack, lim in zip(slacks, study.goal.limits):
-        slack.set_value(0.0)
-    t = time.perf_counter()
-    res = solver.solve(elastic.m, options=options)
-    timing["solve"] += time.perf_counter() - t
-    starts_info = {"n": len(runs), "ok": 0, "reached_best": 0, "runs": runs}
-    if res.solver.termination_condition not in OK_CONDITIONS:
-        return _failed(study, "no start converged and the minimum-violation problem failed too "
-                              f"({res.solver.termination_condition})", timing, runs)
-    total = sum(pyo.value(s) for s in slacks)
-    if total <= 1e-7:
-        # A point meeting every limit exists: the starts failed for other reasons. Solve again from it.
-        model.set_decisions(elastic.decision_values())
-        model.initialize(reference(elastic))
-        res = solver.solve(model.m, options=options, reuse_structure=True)
+    best, best_total = None, float("inf")
+    for i, start in enumerate(sorted(candidates, key=lambda c: c.violation)[:study.numerics.starts]):
+        elastic.set_decisions(start.decisions)
+        elastic.initialize(start.simulation)
+        for slack in slacks:
+            slack.set_value(0.0)
+        t = time.perf_counter()
+        res = solver.solve(elastic.m, options=options, reuse_structure=i > 0)
+        timing["solve"] += time.perf_counter() - t
         if res.solver.termination_condition in OK_CONDITIONS:
-            model, check, _, timing = _verify_and_refine(study, model, solver, options, timing, False)
-            starts_info["ok"] = starts_info["reached_best"] = 1
-            return _result(study, model, "optimal", check, starts_info, timing, t_start)
-        return _failed(study, "a point meeting every limit exists but Ipopt did not converge from it", timing, runs)
+            total = float(sum(pyo.value(x) for x in slacks))
+            if total < best_total:
+                best, best_total = elastic.snapshot(), total
+            if total <= FEASIBLE_VIOLATION:
+                break
+    if best is None:
+        return None
+    elastic.restore(best)
+    return _Closest(elastic, slacks)
 
+
+def _infeasible(study, closest: _Closest, timing, t_start, runs=()) -> Result:
+    """The closest point, and the limits that cannot hold together: those it misses, and those holding at their
+    bounds there (their multipliers are nonzero, so they take part in the conflict)."""
+    elastic = closest.model
+    t = time.perf_counter()
     sim = reference(elastic)
     check = compare(elastic, sim, study.numerics.check_tolerance)
+    timing["check"] += time.perf_counter() - t
+    starts_info = {"n": len(runs), "ok": 0, "reached_best": 0, "runs": list(runs)}
     result = _result(study, elastic, "infeasible", check, starts_info, timing, t_start)
     reports = {r["text"]: r for r in result.limits}
     conflicts = []
-    for slack, lim, lh in zip(slacks, study.goal.limits, elastic.limits):
-        miss = pyo.value(slack) * lh.scale
-        rep = reports[lim.text]
-        if pyo.value(slack) > 1e-7:
-            shown = convert(miss, "K", lim.unit) - convert(0.0, "K", lim.unit) if lim.metric is None and lim.unit else miss
+    for slack, lim, lh in zip(closest.slacks, study.goal.limits, elastic.limits):
+        miss_si = pyo.value(slack) * lh.scale
+        if pyo.value(slack) > FEASIBLE_VIOLATION:
+            si_unit = "K" if lim.metric is None else lim.metric.si_unit
+            shown = miss_si / unit_step(lim.unit, si_unit) if lim.unit else miss_si
             conflicts.append({"limit": lim.text, "missed_by": shown, "unit": lim.unit, "holds": False})
-        elif rep["active"]:
+        elif reports[lim.text]["active"]:
             conflicts.append({"limit": lim.text, "missed_by": 0.0, "unit": lim.unit, "holds": True})
     result.conflicts = conflicts
     held = [c["limit"] for c in conflicts if c["holds"]]
     missed = [f"{c['limit']} (missed by {c['missed_by']:.4g}{' ' + c['unit'] if c['unit'] else ''})"
               for c in conflicts if not c["holds"]]
     bounds = [f"{b['decision']} at its {b['side']} bound" for b in result.bounds if b["side"] in ("low", "high")]
-    result.message = ("no operating point within the decision ranges meets every limit. At the closest point "
+    result.message = ("no operating point within the decision ranges meets every limit. At the closest point found "
                       + "; ".join(missed)
                       + (f", while {', '.join(held)} hold at their bounds" if held else "")
                       + (f" and {', '.join(bounds)}" if bounds else "") + ".")

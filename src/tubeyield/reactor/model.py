@@ -173,18 +173,6 @@ class ReactorModel:
     def decision_values(self) -> dict:
         return {name: h.value() for name, h in self.decisions.items()}
 
-    @property
-    def bounded_species(self) -> set[str]:
-        """Species whose scaled flows get a lower bound of zero: those with a fractional order or in an adsorption
-        denominator, where a negative value would make the rate undefined. Others stay unbounded: a bound at zero
-        is where products start, and Ipopt's bound push would move them off the simulated start (measured on the
-        demo: 105 iterations with bounds, 9 without, from the same start)."""
-        out = set()
-        for r in self.study.reactions:
-            out |= {s for s, n in r.orders + r.reverse_orders if n != int(n)}
-            out |= {s for s, _ in r.adsorption}
-        return out
-
     def free_decisions(self) -> list[Handle]:
         return [h for h in self.decisions.values() if not h.fixed]
 

@@ -50,7 +50,7 @@ class PlugModel(ReactorModel):
         m.z = dae.ContinuousSet(bounds=(0.0, 1.0), initialize=self.edges)
         m.S = pyo.Set(initialize=symbols, ordered=True)
         m.J = pyo.Set(initialize=[r.id for r in st.reactions], ordered=True)
-        m.u = pyo.Var(m.S, m.z, bounds=lambda m, s, z: (0.0 if s in self.bounded_species else None, None),
+        m.u = pyo.Var(m.S, m.z, bounds=(0.0, None),
                       initialize=lambda m, s, z: pyo.value(self.u0[s]))
         m.du = dae.DerivativeVar(m.u, wrt=m.z)
         energy = heat in ("adiabatic", "cooled")

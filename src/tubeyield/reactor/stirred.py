@@ -27,7 +27,7 @@ class StirredModel(ReactorModel):
         m.K = pyo.RangeSet(1, n)
         m.S = pyo.Set(initialize=symbols, ordered=True)
         m.J = pyo.Set(initialize=[r.id for r in st.reactions], ordered=True)
-        m.u = pyo.Var(m.S, m.K, bounds=lambda m, s, k: (0.0 if s in self.bounded_species else None, None),
+        m.u = pyo.Var(m.S, m.K, bounds=(0.0, None),
                       initialize=lambda m, s, k: pyo.value(self.u0[s]))
         energy = rx.heat in ("adiabatic", "cooled")
         if energy:
