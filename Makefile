@@ -18,7 +18,7 @@ demo: $(VENV)/.installed
 	$(BIN)/tubeyield check $(STUDY)
 	$(BIN)/tubeyield optimize $(STUDY) --save reports/results/oxidation
 	$(BIN)/tubeyield front $(STUDY) --save reports/results/oxidation
-	$(BIN)/tubeyield window $(STUDY) --save reports/results/oxidation
+	$(BIN)/tubeyield window $(STUDY) --at reports/results/oxidation/optimum.json --save reports/results/oxidation
 	$(BIN)/tubeyield report reports/results/oxidation --out reports/oxidation
 	@echo "report written: reports/oxidation/index.html"
 

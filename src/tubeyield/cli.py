@@ -38,6 +38,24 @@ def _parser() -> argparse.ArgumentParser:
                    help="a decision value with units, e.g. tau=120s, T=340K, ratio.O=1.5 (repeatable)")
     s.add_argument("--json", action="store_true")
     s.add_argument("--profile", metavar="CSV", help="write the axial profile to this CSV file")
+
+    f = sub.add_parser("front", help="the Pareto front of the two metrics in [front]")
+    f.add_argument("study")
+    f.add_argument("--points", type=int, help="number of levels (default: front.points)")
+    f.add_argument("--json", action="store_true")
+    f.add_argument("--save", metavar="DIR", help="write front.json and front.csv to DIR")
+
+    w = sub.add_parser("window", help="maps of the goal and the limits over the two decisions in [window]")
+    w.add_argument("study")
+    w.add_argument("--at", metavar="RESULT_JSON", help="an optimum.json to fix the other decisions at (default: "
+                                                        "optimize first)")
+    w.add_argument("--workers", type=int, help="processes for cell-by-cell maps (default: all cores)")
+    w.add_argument("--json", action="store_true")
+    w.add_argument("--save", metavar="DIR", help="write window.json to DIR")
+
+    r = sub.add_parser("report", help="build the HTML report from saved results")
+    r.add_argument("results", help="a directory written by --save")
+    r.add_argument("--out", metavar="DIR", help="where to write the report (default: reports/<study>)")
     return p
 
 
@@ -148,4 +166,86 @@ def _simulate(args) -> int:
     return EXIT_OK
 
 
-JOBS = {"check": _check, "optimize": _optimize, "simulate": _simulate}
+# ---------------------------------------------------------------------------------------------- front, window, report
+
+
+def _front(args) -> int:
+    from pathlib import Path
+
+    from tubeyield.jobs.front import front
+    from tubeyield.report.files import save_inputs, write_atomic, write_json
+    from tubeyield.study import load_study
+
+    study = load_study(args.study)
+    if study.front is None:
+        raise StudyError(f"{args.study}: front", "a [front] table with x, y and points")
+    if args.points is not None and args.points < 3:
+        raise StudyError("--points", f"at least 3 levels, got {args.points}")
+    result = front(study, points=args.points)
+    if args.save:
+        write_json(Path(args.save) / "front.json", result.to_dict())
+        write_atomic(Path(args.save) / "front.csv", result.table().to_csv(index=False))
+        save_inputs(args.save, study)
+    if args.json:
+        _print_json(result.to_dict())
+    else:
+        from tubeyield.report.text import front_summary
+        print(front_summary(result))
+    if result.status in ("infeasible",):
+        return EXIT_INFEASIBLE
+    return EXIT_OK if result.status in ("done", "single point") else EXIT_FAILED
+
+
+def _window(args) -> int:
+    import json as _json
+    from pathlib import Path
+
+    from tubeyield.jobs.optimize import optimize
+    from tubeyield.jobs.window import window
+    from tubeyield.report.files import save_inputs, write_json
+    from tubeyield.study import load_study
+
+    study = load_study(args.study)
+    if study.window is None:
+        raise StudyError(f"{args.study}: window", "a [window] table with x, y and points")
+    if args.at:
+        try:
+            saved = _json.loads(Path(args.at).read_text(encoding="utf-8"))
+            base = saved["decisions_si"]
+            status = saved["status"]
+        except (OSError, ValueError, KeyError) as exc:
+            raise StudyError(args.at, f"an optimum.json written by 'tubeyield optimize --save' ({exc})") from None
+        if set(base) != {d.name for d in study.decisions}:
+            raise StudyError(args.at, "an optimum of this study (its decisions differ)")
+    else:
+        res = optimize(study)
+        base, status = res.decisions_si, res.status
+    optimum = None
+    if status == "optimal":
+        dx, dy = study.decision(study.window.x), study.decision(study.window.y)
+        from tubeyield.study.units import convert
+        optimum = {"x": convert(base[dx.name], dx.si_unit, dx.unit) if dx.unit else base[dx.name],
+                   "y": convert(base[dy.name], dy.si_unit, dy.unit) if dy.unit else base[dy.name]}
+    if args.workers is not None and args.workers < 1:
+        raise StudyError("--workers", f"a positive number of processes, got {args.workers}")
+    result = window(study, base, workers=args.workers, optimum=optimum)
+    if args.save:
+        write_json(Path(args.save) / "window.json", result.to_dict())
+        save_inputs(args.save, study)
+    if args.json:
+        _print_json(result.to_dict())
+    else:
+        from tubeyield.report.text import window_summary
+        print(window_summary(result))
+    return EXIT_OK
+
+
+def _report(args) -> int:
+    from tubeyield.report.html import build_report
+    index = build_report(args.results, args.out)
+    print(f"report written: {index}")
+    return EXIT_OK
+
+
+JOBS = {"check": _check, "optimize": _optimize, "simulate": _simulate, "front": _front, "window": _window,
+        "report": _report}

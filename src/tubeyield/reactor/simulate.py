@@ -143,18 +143,21 @@ class Simulation:
     # ------------------------------------------------------------------------------------------------ profiles
 
     def states_at(self, z: np.ndarray) -> dict:
-        """Scaled flows and T (K) at positions z (plug flow)."""
+        """Scaled flows and T (K) at positions z (plug flow), one dense-output call per segment."""
         symbols = self.study.symbols
+        z = np.asarray(z, dtype=float)
         out = {s: np.empty(len(z)) for s in symbols}
         out["T"] = np.empty(len(z))
         starts = [seg[0] for seg in self.segments]
-        for i, zi in enumerate(z):
-            k = min(max(bisect.bisect_left(starts, zi - 1e-12) - 1, 0), len(self.segments) - 1)
+        which = np.clip(np.searchsorted(starts, z - 1e-12, side="left") - 1, 0, len(self.segments) - 1)
+        for k in np.unique(which):
             z0, z1, sol, T_fun = self.segments[k]
-            y = sol.sol(min(max(zi, z0), z1))
+            idx = np.nonzero(which == k)[0]
+            zk = np.clip(z[idx], z0, z1)
+            y = sol.sol(zk)
             for n, s in enumerate(symbols):
-                out[s][i] = y[n]
-            out["T"][i] = y[len(symbols)] if T_fun is None else T_fun(zi)
+                out[s][idx] = y[n]
+            out["T"][idx] = y[len(symbols)] if T_fun is None else [T_fun(v) for v in zk]
         return out
 
     def derivatives_at(self, z: np.ndarray) -> dict:

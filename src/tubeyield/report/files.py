@@ -16,11 +16,18 @@ def write_atomic(path: Path, text: str | bytes) -> None:
     try:
         with os.fdopen(fd, mode, **({} if mode == "wb" else {"encoding": "utf-8"})) as fh:
             fh.write(text)
+        os.chmod(tmp, 0o666 & ~_umask())     # mkstemp makes 0600; results are meant to be shared
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):
             os.unlink(tmp)
         raise
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
 
 
 def write_json(path: Path, obj) -> None:

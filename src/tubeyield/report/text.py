@@ -102,3 +102,44 @@ def evaluation_summary(result, notes=()) -> str:
     out.append(f"\n{result.message}")
     out += ["", CAUTION]
     return "\n".join(out)
+
+
+def front_summary(result) -> str:
+    out = [f"{result.study}: front of {result.y} ({result.y_sense}) against {result.x} ({result.x_sense}): "
+           f"{result.status}"]
+    if result.message:
+        out.append(f"  {result.message}")
+    rows = []
+    for i, p in enumerate(result.points):
+        mark = "knee" if i == result.knee else ("dominated" if p["dominated"] else "")
+        if p["status"] != "optimal":
+            rows.append(f"  {i:>3}  level {_fmt(p['level'])}: not attainable")
+            continue
+        dec = "  ".join(f"{k} {_fmt(v, 4)}" for k, v in p["decisions"].items() if not isinstance(v, list))
+        rows.append(f"  {i:>3}  {result.x} {_fmt(p['x'])}  {result.y} {_fmt(p['y'])}  "
+                    f"d{result.y}/d{result.x} {_fmt(p['trade_off'], 4)}  {dec}  {mark}".rstrip())
+    out += rows
+    t = result.timing
+    if t:
+        out.append("time: " + ", ".join(f"{k} {v:.2f} s" for k, v in t.items()))
+    out += ["", CAUTION]
+    return "\n".join(out)
+
+
+def window_summary(w) -> str:
+    share = float(w.window.mean())
+    out = [f"{w.study}: {w.goal} over {w.x} [{w.x_unit}] and {w.y} [{w.y_unit}], "
+           f"{len(w.x_values)} x {len(w.y_values)} cells ({w.method})",
+           f"  other decisions: " + (", ".join(f"{k} = {_fmt(v)}" for k, v in w.fixed.items()) or "none"),
+           f"  every limit holds in {100 * share:.1f} % of the map"]
+    for text, h in w.holds.items():
+        out.append(f"  {text}: holds in {100 * float(h.mean()):.1f} %")
+    if w.window.any():
+        import numpy as np
+        goal = np.where(w.window, w.maps[w.goal], np.nan)
+        j, i = np.unravel_index(np.nanargmax(goal), goal.shape)
+        out.append(f"  best cell inside the window: {w.x} {_fmt(w.x_values[i])}, {w.y} {_fmt(w.y_values[j])}, "
+                   f"{w.goal} {_fmt(goal[j, i])}")
+    out.append(f"time: {w.timing.get('total', 0):.2f} s")
+    out += ["", CAUTION]
+    return "\n".join(out)

@@ -62,6 +62,9 @@ DEFAULT_OPTIONS = {
     "max_iter": 1000,
 }
 
+# Warm starts (continuation along a front, sweep re-solves): start from the previous primal and dual point with a small
+# barrier parameter and monotone updates. Measured on the demo's 21-point front: 5 iterations per point (adaptive
+# barrier from mu_init 1e-4: 5 per point but up to 496 near the end; cold starts: 6-32).
 WARM_OPTIONS = {
     "warm_start_init_point": "yes",
     "warm_start_bound_push": 1e-9,
@@ -70,6 +73,7 @@ WARM_OPTIONS = {
     "warm_start_slack_bound_frac": 1e-9,
     "warm_start_mult_bound_push": 1e-9,
     "mu_init": 1e-6,
+    "mu_strategy": "monotone",
 }
 
 _STATUS = {
@@ -108,8 +112,6 @@ class _Built:
     solver: object
     free: np.ndarray              # NL indices of the variables Ipopt optimizes
     pinned: np.ndarray            # NL indices handed over as parameters
-    lam_x: np.ndarray | None = None
-    lam_g: np.ndarray | None = None
     build_seconds: float = 0.0
 
 
@@ -133,6 +135,8 @@ class BundledIpopt:
         self.options = dict(kwds.get("options", {}))
         self.max_cached = int(kwds.get("max_cached", 8))
         self._built: OrderedDict[tuple, _Built] = OrderedDict()
+        # Last multipliers per structure (shared by the solvers built for it with different options), for warm starts.
+        self._multipliers: OrderedDict[tuple, tuple] = OrderedDict()
         self._written: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
         self.last_timing: dict[str, float] = {}
         self.last_stats: dict = {}
@@ -183,9 +187,10 @@ class BundledIpopt:
         pinned_mask = lbx == ubx
         x0[pinned_mask] = lbx[pinned_mask]
 
-        has_warm = warmstart
-        key = (written.key_text, tuple(np.nonzero(pinned_mask)[0]), tuple(sorted((k, str(v)) for k, v in opts.items())),
-               bool(tee), bool(has_warm))
+        structure = (written.key_text, tuple(np.nonzero(pinned_mask)[0]))
+        multipliers = self._multipliers.get(structure)
+        has_warm = warmstart and multipliers is not None
+        key = structure + (tuple(sorted((k, str(v)) for k, v in opts.items())), bool(tee), bool(has_warm))
         t1 = time.perf_counter()
         built = self._built.get(key)
         if built is None:
@@ -199,14 +204,16 @@ class BundledIpopt:
 
         args = dict(x0=x0[built.free], lbx=lbx[built.free], ubx=ubx[built.free], lbg=written.lbg, ubg=written.ubg,
                     p=x0[built.pinned])
-        if has_warm and built.lam_x is not None:
-            args.update(lam_x0=built.lam_x, lam_g0=built.lam_g)
+        if has_warm:
+            args.update(lam_x0=multipliers[0], lam_g0=multipliers[1])
         t2 = time.perf_counter()
         sol = built.solver(**args)
         t_solve = time.perf_counter() - t2
         stats = built.solver.stats()
-        built.lam_x = np.array(sol["lam_x"]).ravel()
-        built.lam_g = np.array(sol["lam_g"]).ravel()
+        self._multipliers[structure] = (np.array(sol["lam_x"]).ravel(), np.array(sol["lam_g"]).ravel())
+        self._multipliers.move_to_end(structure)
+        while len(self._multipliers) > self.max_cached:
+            self._multipliers.popitem(last=False)
 
         status_text = stats.get("return_status", "unknown")
         solver_status, condition = termination_of(status_text)

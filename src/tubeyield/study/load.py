@@ -600,8 +600,14 @@ def _read_front(t: Table | None, symbols: set[str]) -> FrontSpec | None:
     if x == y:
         raise StudyError(t.key("y"), "a metric other than x")
     points = int(_number(t.take("points", 21), t.key("points"), integer=True, low=3))
+    senses = []
+    for axis in ("x_sense", "y_sense"):
+        v = t.take(axis, "max", types=str)
+        if v not in ("max", "min"):
+            raise StudyError(t.key(axis), f"'max' or 'min' (which way the metric is better), got {v!r}")
+        senses.append(v)
     t.close()
-    return FrontSpec(x, y, points)
+    return FrontSpec(x, y, points, *senses)
 
 
 def _read_window(t: Table | None, decisions) -> WindowSpec | None:

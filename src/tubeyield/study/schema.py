@@ -173,6 +173,8 @@ class FrontSpec:
     x: Metric
     y: Metric
     points: int = 21
+    x_sense: str = "max"          # max | min: which way each metric is better
+    y_sense: str = "max"
 
 
 @dataclass(frozen=True)

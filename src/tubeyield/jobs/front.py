@@ -1,0 +1,229 @@
+"""The front job: the Pareto front of two metrics by the epsilon-constraint method, with continuation.
+
+1. The single-metric optima (optimize job, multistart) give the ends: the y-optimum fixes where x starts, the
+   x-optimum where it ends.
+2. Between them, y is optimized subject to x at evenly spaced levels (x >= level when x is maximized), the study's
+   limits kept. The level is a pinned variable of one model, so the built solver is reused and each point is
+   warm-started from its neighbour (primal values and multipliers): a continuation along the front.
+3. Levels Ipopt cannot meet are marked infeasible; dominated points are dropped; the knee is the point farthest from
+   the chord between the ends (in coordinates scaled to the ends). Each point keeps its decisions, all metrics, its
+   active limits and the local trade-off dy/dx (the multiplier of the level constraint).
+
+References
+----------
+Y. Y. Haimes, L. S. Lasdon and D. A. Wismer, "On a bicriterion formulation of the problems of integrated system
+identification and system optimization", IEEE Trans. Syst. Man Cybern. SMC-1 (1971) 296-297: the epsilon-constraint
+method. K. Miettinen, Nonlinear Multiobjective Optimization, Kluwer 1999, section 3.2. I. Das, "On characterizing the
+'knee' of the Pareto curve based on normal-boundary intersection", Struct. Optim. 18 (1999) 107-115: the knee as the
+point of largest distance from the line through the ends.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+import pyomo.environ as pyo
+
+from tubeyield import __version__
+from tubeyield.jobs.optimize import _user_decisions, metric_display, optimize, prepare
+from tubeyield.jobs.result import Result, _finite
+from tubeyield.reactor.metrics import all_metrics
+from tubeyield.reactor.verify import compare, reference
+from tubeyield.solve import OK_CONDITIONS, make_solver
+from tubeyield.solve.marginals import bound_reports, limit_reports
+from tubeyield.study.metric import Metric
+from tubeyield.study.schema import Study
+
+LEVEL = "front_level"
+
+
+@dataclass
+class FrontResult:
+    study: str
+    x: str
+    y: str
+    x_sense: str
+    y_sense: str
+    status: str                      # done | infeasible | failed | single point
+    points: list                     # every level: dict with level, status, x, y, decisions, metrics, ...
+    ends: dict                       # {"y_optimum": Result dict, "x_optimum": Result dict}
+    knee: int | None = None          # index into points
+    timing: dict = field(default_factory=dict)
+    message: str = ""
+
+    def front_points(self) -> list:
+        return [p for p in self.points if p["status"] == "optimal" and not p["dominated"]]
+
+    def to_dict(self) -> dict:
+        return _finite({"tool": f"tubeyield {__version__}", "study": self.study, "x": self.x, "y": self.y,
+                        "x_sense": self.x_sense, "y_sense": self.y_sense, "status": self.status,
+                        "message": self.message, "knee": self.knee, "points": self.points, "ends": self.ends,
+                        "timing": self.timing})
+
+    def table(self):
+        """One row per level: level, status, x, y, trade-off, decisions, metrics (pandas)."""
+        import pandas as pd
+        rows = []
+        for i, p in enumerate(self.points):
+            row = {"point": i, "status": p["status"], "dominated": p["dominated"], "knee": i == self.knee,
+                   "level": p["level"], self.x: p["x"], self.y: p["y"], "trade_off_dy_dx": p["trade_off"],
+                   "check_max_rel_error": p["check"]}
+            for name, v in p["decisions"].items():
+                row[f"decision:{name}"] = v if not isinstance(v, list) else f"profile {min(v):.6g}..{max(v):.6g}"
+            for name, v in p["metrics"].items():
+                row[name] = v
+            row["active_limits"] = "; ".join(p["active"])
+            rows.append(row)
+        return pd.DataFrame(rows)
+
+
+def _with_goal(study: Study, metric: Metric, sense: str) -> Study:
+    return dataclasses.replace(study, goal=dataclasses.replace(study.goal, metric=metric, sense=sense))
+
+
+def front(study: Study, *, points: int | None = None, solver=None) -> FrontResult:
+    spec = study.front
+    n = points or spec.points
+    t0 = time.perf_counter()
+    solver = solver or make_solver(study.numerics)
+    options = dict(study.numerics.ipopt)
+    xs, ys = spec.x_sense, spec.y_sense
+    timing = {}
+
+    t = time.perf_counter()
+    y_opt = optimize(_with_goal(study, spec.y, ys), solver=solver)
+    x_opt = optimize(_with_goal(study, spec.x, xs), solver=solver)
+    timing["ends"] = time.perf_counter() - t
+    ends = {"y_optimum": y_opt.to_dict(), "x_optimum": x_opt.to_dict()}
+    result = FrontResult(study.name, spec.x.text, spec.y.text, xs, ys, "done", [], ends, timing=timing)
+    if y_opt.status != "optimal" or x_opt.status != "optimal":
+        bad = y_opt if y_opt.status != "optimal" else x_opt
+        result.status = bad.status
+        result.message = f"the single-metric optimum failed: {bad.message}"
+        return result
+
+    x_start = y_opt.metrics[spec.x.text]["value"]
+    x_end = x_opt.metrics[spec.x.text]["value"]
+    sign = 1.0 if xs == "max" else -1.0
+    if sign * (x_end - x_start) <= 1e-9 * max(1.0, abs(x_end)):
+        result.status = "single point"
+        result.message = (f"no trade-off: the optimum of {spec.y.text} is also the optimum of {spec.x.text}")
+        result.points = [_point_from_result(y_opt, spec, x_start)]
+        result.knee = 0
+        return result
+
+    # One model: maximize y subject to x at a level that is a pinned variable.
+    t = time.perf_counter()
+    elements = max(y_opt.check.elements, x_opt.check.elements)
+    fstudy = _with_goal(study, spec.y, ys)
+    model = prepare(fstudy, elements, scale_hint=y_opt.goal["value"])
+    x_scale = 1.0 if spec.x.kind in ("conversion", "yield", "selectivity") else max(abs(x_start), abs(x_end), 1e-300)
+    model.add_level(LEVEL, spec.x, ">=" if xs == "max" else "<=", x_start, x_scale)
+    timing["build"] = time.perf_counter() - t
+
+    levels = np.linspace(x_start, x_end, n)
+    # Nudge the last level inside the attainable range: x_end is itself an optimum found to solver tolerance.
+    levels[-1] = x_end - sign * 1e-9 * max(1.0, abs(x_end))
+    _start_from(model, study, y_opt.decisions_si)
+    t = time.perf_counter()
+    previous = None
+    for i, level in enumerate(levels):
+        model.set_level(LEVEL, float(level))
+        res = solver.solve(model.m, options=options, reuse_structure=i > 0, warmstart=previous is not None)
+        ok = res.solver.termination_condition in OK_CONDITIONS
+        if not ok and previous is not None:
+            # continuation failed: back to the last good point and a cold start
+            model.restore(previous)
+            _start_from(model, study, model.decision_values())
+            res = solver.solve(model.m, options=options, reuse_structure=True)
+            ok = res.solver.termination_condition in OK_CONDITIONS
+        if ok:
+            previous = model.snapshot()
+            result.points.append(_point(model, study, spec, float(level), solver))
+        else:
+            result.points.append({"level": float(level), "status": "infeasible", "x": None, "y": None,
+                                  "trade_off": None, "decisions": {}, "metrics": {}, "active": [], "check": None,
+                                  "dominated": False, "iterations": solver.last_stats.get("iterations")})
+            if previous is not None:
+                model.restore(previous)
+    timing["points"] = time.perf_counter() - t
+    _mark_dominated(result.points, xs, ys)
+    result.knee = _knee(result.points, xs, ys)
+    n_bad = sum(p["status"] != "optimal" for p in result.points)
+    if n_bad:
+        result.message = f"{n_bad} of {len(result.points)} levels could not be met"
+    timing["total"] = time.perf_counter() - t0
+    return result
+
+
+def _start_from(model, study: Study, decisions: dict) -> None:
+    from tubeyield.reactor.simulate import simulate
+    model.set_decisions(decisions)
+    model.initialize(simulate(study, model.decision_values(), T_profile=model.temperature_function()))
+
+
+def _point(model, study: Study, spec, level: float, solver) -> dict:
+    values = model.decision_values()
+    metrics = {}
+    for met in all_metrics(study):
+        metrics[met.text] = metric_display(met, model.metric_value(met))[0]
+    x = metric_display(spec.x, model.metric_value(spec.x))[0]
+    y = metric_display(spec.y, model.metric_value(spec.y))[0]
+    level_con = model.m.component(LEVEL)
+    # dual of the level constraint: d y_scaled / d level_scaled -> dy/dx in display units
+    dual = model.m.dual.get(level_con, 0.0) or 0.0
+    _, x_scale = model.levels[LEVEL]
+    dy_dx = dual * model.goal_scale / x_scale
+    dy_dx *= _display_factor(spec.y) / _display_factor(spec.x)
+    active = [r.text for r in limit_reports(model) if r.active]
+    active += [f"{b.decision} at {b.side} bound" for b in bound_reports(model) if b.side in ("low", "high")]
+    check = compare(model, reference(model), study.numerics.check_tolerance)
+    return {"level": metric_display(spec.x, level)[0], "status": "optimal", "x": x, "y": y, "trade_off": dy_dx,
+            "decisions": _user_decisions(study, values), "metrics": metrics, "active": active,
+            "check": check.max_rel_error, "dominated": False, "iterations": solver.last_stats.get("iterations")}
+
+
+def _display_factor(metric: Metric) -> float:
+    return metric_display(metric, 1.0)[0]
+
+
+def _point_from_result(r: Result, spec, level: float) -> dict:
+    return {"level": level, "status": "optimal", "x": r.metrics[spec.x.text]["value"],
+            "y": r.metrics[spec.y.text]["value"], "trade_off": 0.0,
+            "decisions": {k: v["value"] for k, v in r.decisions.items()},
+            "metrics": {k: v["value"] for k, v in r.metrics.items()},
+            "active": [lim["text"] for lim in r.limits if lim["active"]], "check": r.check.max_rel_error,
+            "dominated": False, "iterations": None}
+
+
+def _mark_dominated(points: list, xs: str, ys: str, tol: float = 1e-9) -> None:
+    """A point is dominated when another is at least as good in both metrics and better in one."""
+    sx = 1.0 if xs == "max" else -1.0
+    sy = 1.0 if ys == "max" else -1.0
+    good = [p for p in points if p["status"] == "optimal"]
+    for p in good:
+        for q in good:
+            if q is p:
+                continue
+            dx, dy = sx * (q["x"] - p["x"]), sy * (q["y"] - p["y"])
+            scale_x, scale_y = tol * max(1.0, abs(p["x"])), tol * max(1.0, abs(p["y"]))
+            if dx >= -scale_x and dy >= -scale_y and (dx > scale_x or dy > scale_y):
+                p["dominated"] = True
+                break
+
+
+def _knee(points: list, xs: str, ys: str) -> int | None:
+    """Index of the non-dominated point farthest from the chord between the ends, in coordinates scaled to [0, 1]."""
+    idx = [i for i, p in enumerate(points) if p["status"] == "optimal" and not p["dominated"]]
+    if len(idx) < 3:
+        return idx[0] if idx else None
+    x = np.array([points[i]["x"] for i in idx])
+    y = np.array([points[i]["y"] for i in idx])
+    xr = (x - x[0]) / (x[-1] - x[0]) if x[-1] != x[0] else np.zeros_like(x)
+    yr = (y - y[-1]) / (y[0] - y[-1]) if y[0] != y[-1] else np.zeros_like(y)
+    # chord from (0, 1) to (1, 0): distance |x + y - 1| / sqrt(2); the knee bulges outwards (x + y > 1)
+    d = (xr + yr - 1.0) / np.sqrt(2.0)
+    return idx[int(np.argmax(d))]

@@ -1,0 +1,202 @@
+"""Figures of a study: axial profiles, the trade-off front, operating-window maps. matplotlib, Agg backend.
+
+Style: one look for every figure; the Okabe-Ito colour-blind-safe palette for lines (M. Okabe and K. Ito, "Color
+Universal Design", 2008; recommended by B. Wong, Nature Methods 8 (2011) 441) and the cividis colour map for maps
+(J. R. Nunez, C. R. Anderton and R. S. Renslow, PLoS ONE 13 (2018) e0199239); units on every axis.
+"""
+
+from __future__ import annotations
+
+import io
+
+import matplotlib
+import matplotlib.ticker
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+
+PALETTE = ["#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#000000", "#F0E442"]
+LINESTYLES = ["-", "--", "-.", ":"]
+STYLE = {
+    "figure.dpi": 110, "savefig.dpi": 130, "font.size": 9.5, "axes.titlesize": 10.5, "axes.labelsize": 9.5,
+    "axes.spines.top": False, "axes.spines.right": False, "axes.grid": True, "grid.color": "#dddddd",
+    "grid.linewidth": 0.6, "legend.frameon": False, "axes.prop_cycle": matplotlib.cycler(color=PALETTE),
+}
+
+
+def _label(name: str, unit: str) -> str:
+    return f"{name} [{unit}]" if unit else f"{name} [-]"
+
+
+def save(fig, stem) -> dict:
+    """Write <stem>.png and <stem>.svg; return {'png': bytes, 'svg': path, 'png_path': path}."""
+    from tubeyield.report.files import write_atomic
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", bbox_inches="tight")
+    png = buf.getvalue()
+    svg = io.StringIO()
+    fig.savefig(svg, format="svg", bbox_inches="tight")
+    write_atomic(stem.with_suffix(".png"), png)
+    write_atomic(stem.with_suffix(".svg"), svg.getvalue())
+    plt.close(fig)
+    return {"png": png, "png_path": stem.with_suffix(".png").name, "svg_path": stem.with_suffix(".svg").name}
+
+
+def profiles(profile, symbols, title: str):
+    """Concentrations and temperature along the reactor (rows of the optimum's profile table)."""
+    with plt.rc_context(STYLE):
+        fig, (ax, axT) = plt.subplots(1, 2, figsize=(9.2, 3.4))
+        if "tank" in profile:
+            x, xlabel = profile["tank"], _label("tank", "")
+            marker = "o"
+        else:
+            x, xlabel = profile["residence_time_s"] / 60.0, _label("residence time", "min")
+            marker = None
+        for i, s in enumerate(symbols):
+            col = f"C_{s}_mol_per_m3"
+            ax.plot(x, profile[col] / 1000.0, marker=marker, label=s, color=PALETTE[i % len(PALETTE)],
+                    linestyle=LINESTYLES[(i // len(PALETTE)) % len(LINESTYLES)])
+        ax.set_xlabel(xlabel)
+        ax.set_ylabel(_label("concentration", "mol/L"))
+        ax.set_title("concentrations")
+        ax.legend(ncol=2, fontsize=8)
+        axT.plot(x, profile["T_K"], color=PALETTE[3], marker=marker)
+        axT.set_xlabel(xlabel)
+        axT.set_ylabel(_label("temperature", "K"))
+        axT.set_title("temperature")
+        fig.suptitle(title, fontsize=10.5)
+        fig.tight_layout()
+    return fig
+
+
+def front(result: dict, title: str):
+    """The front (left) and how the decisions move along it (right)."""
+    pts = result["points"]
+    ok = [p for p in pts if p["status"] == "optimal" and not p["dominated"]]
+    bad = [p for p in pts if p["status"] != "optimal"]
+    with plt.rc_context(STYLE):
+        fig, (ax, axd) = plt.subplots(1, 2, figsize=(9.2, 3.6))
+        ax.plot([p["x"] for p in ok], [p["y"] for p in ok], "-o", color=PALETTE[0], ms=3.5, label="front")
+        if result.get("knee") is not None:
+            k = pts[result["knee"]]
+            ax.plot([k["x"]], [k["y"]], "D", color=PALETTE[3], ms=8, label="knee")
+        if ok:
+            ax.plot([ok[0]["x"], ok[-1]["x"]], [ok[0]["y"], ok[-1]["y"]], ":", color="#777777", lw=1,
+                    label="chord between ends")
+        for p in bad:
+            ax.axvline(p["level"], color=PALETTE[1], lw=0.8, ls="--")
+        if bad:
+            ax.plot([], [], ls="--", color=PALETTE[1], label="level not attainable")
+        ax.set_xlabel(_label(result["x"], ""))
+        ax.set_ylabel(_label(result["y"], ""))
+        ax.set_title("trade-off front")
+        ax.legend(fontsize=8)
+        names = [n for n in (ok[0]["decisions"] if ok else {}) if not isinstance(ok[0]["decisions"][n], list)]
+        for i, n in enumerate(names):
+            vals = np.array([p["decisions"][n] for p in ok], dtype=float)
+            span = vals.max() - vals.min()
+            if span <= 1e-6 * max(1.0, np.abs(vals).max()):          # constant along the front
+                rel, label = np.full_like(vals, 0.5), f"{n} constant at {vals.mean():.4g}"
+            else:
+                rel, label = (vals - vals.min()) / span, f"{n} ({vals.min():.4g} to {vals.max():.4g})"
+            axd.plot([p["x"] for p in ok], rel, LINESTYLES[i % len(LINESTYLES)], color=PALETTE[i % len(PALETTE)],
+                     label=label)
+        axd.set_xlabel(_label(result["x"], ""))
+        axd.set_ylabel(_label("decision, scaled to its range along the front", ""))
+        axd.set_title("operating point along the front")
+        axd.legend(fontsize=7.5)
+        fig.suptitle(title, fontsize=10.5)
+        fig.tight_layout()
+    return fig
+
+
+def _levels(values, n: int = 21):
+    v = np.asarray(values, dtype=float)
+    lo, hi = np.nanmin(v), np.nanmax(v)
+    if not np.isfinite(lo) or hi - lo <= 1e-12 * max(1.0, abs(hi)):
+        return np.linspace(lo - 0.5, hi + 0.5, 3) if np.isfinite(lo) else np.linspace(0, 1, 3)
+    return matplotlib.ticker.MaxNLocator(nbins=n - 1).tick_values(lo, hi)
+
+
+def window_maps(w, title: str):
+    """Goal map with the operating window and limit contours (left); one small map per limit (right)."""
+    x, y = w.x_values, w.y_values
+    logx = w.x == "tau" and x[-1] / x[0] >= 10
+    logy = w.y == "tau" and y[-1] / y[0] >= 10
+    limits = list(w.holds)
+    n_side = max(1, (len(limits) + 1) // 2)          # limit panels on two rows at the right
+    with plt.rc_context(STYLE):
+        fig = plt.figure(figsize=(5.4 + 2.9 * n_side, 5.2))
+        grid = fig.add_gridspec(2, 1 + n_side, width_ratios=[2.4] + [1] * n_side, hspace=0.55, wspace=0.6)
+        ax = fig.add_subplot(grid[:, 0])
+        goal = w.maps[w.goal]
+        cs = ax.contourf(x, y, goal, levels=_levels(goal), cmap="cividis", extend="both")
+        fig.colorbar(cs, ax=ax, label=_label(w.goal, ""), format="%.3g", pad=0.03)
+        if w.window.any():
+            ax.contourf(x, y, w.window.astype(float), levels=[0.5, 1.5], colors="none", hatches=["////"])
+            ax.contour(x, y, w.window.astype(float), levels=[0.5], colors="white", linewidths=1.8)
+        for i, text in enumerate(limits):
+            color = PALETTE[(i + 1) % len(PALETTE)]
+            ax.contour(x, y, w.holds[text].astype(float), levels=[0.5], colors=[color], linewidths=1.2,
+                       linestyles=LINESTYLES[i % len(LINESTYLES)])
+            ax.plot([], [], color=color, ls=LINESTYLES[i % len(LINESTYLES)], label=f"edge of {text}")
+        ax.plot([], [], color="white", lw=1.8, label="operating window (all limits hold)")
+        if w.optimum:
+            ax.plot([w.optimum["x"]], [w.optimum["y"]], "*", color=PALETTE[3], ms=13, mec="white", label="optimum")
+        ax.set_xlabel(_label(w.x, w.x_unit))
+        ax.set_ylabel(_label(w.y, w.y_unit))
+        if logx:
+            ax.set_xscale("log")
+        if logy:
+            ax.set_yscale("log")
+        ax.set_title(f"{w.goal}; others at the {'cell optimum' if w.others == 'optimized' else 'optimum'}")
+        leg = ax.legend(fontsize=7.5, loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=2, frameon=True)
+        leg.get_frame().set_facecolor("#eeeeee")
+        for i, text in enumerate(limits):
+            sub = fig.add_subplot(grid[i % 2, 1 + i // 2])
+            sub.contourf(x, y, w.maps[text], levels=_levels(w.maps[text], 15), cmap="cividis", extend="both")
+            sub.contour(x, y, w.holds[text].astype(float), levels=[0.5], colors="white", linewidths=1.2)
+            sub.set_title(f"{text}\n(white: edge)", fontsize=8.5)
+            sub.tick_params(labelsize=7)
+            if logx:
+                sub.set_xscale("log")
+            if logy:
+                sub.set_yscale("log")
+            sub.set_xlabel(_label(w.x, w.x_unit), fontsize=7.5)
+            sub.set_ylabel(_label(w.y, w.y_unit), fontsize=7.5)
+        fig.suptitle(title, fontsize=10.5)
+    return fig
+
+
+def histogram_grid(columns: dict, title: str):
+    """Histograms of several quantities (sweep summaries): name -> (values, unit)."""
+    n = len(columns)
+    cols = min(3, max(1, n))
+    rows = (n + cols - 1) // cols
+    with plt.rc_context(STYLE):
+        fig, axes = plt.subplots(rows, cols, figsize=(3.3 * cols, 2.6 * rows), squeeze=False)
+        for ax, (name, (values, unit)) in zip(axes.ravel(), columns.items()):
+            v = np.asarray([x for x in values if x is not None and np.isfinite(x)], dtype=float)
+            if v.size:
+                ax.hist(v, bins=min(30, max(5, v.size // 8)), color=PALETTE[0], edgecolor="white")
+            ax.set_xlabel(_label(name, unit), fontsize=8)
+            ax.set_ylabel(_label("scenarios", ""), fontsize=8)
+        for ax in axes.ravel()[n:]:
+            ax.axis("off")
+        fig.suptitle(title, fontsize=10.5)
+        fig.tight_layout()
+    return fig
+
+
+def bars(labels, values, xlabel: str, title: str):
+    with plt.rc_context(STYLE):
+        fig, ax = plt.subplots(figsize=(6.4, 0.35 * len(labels) + 1.2))
+        order = np.argsort(np.abs(values))
+        ax.barh([labels[i] for i in order], [values[i] for i in order],
+                color=[PALETTE[0] if values[i] >= 0 else PALETTE[3] for i in order])
+        ax.set_xlabel(_label(xlabel, ""))
+        ax.set_title(title)
+        ax.axvline(0, color="#444444", lw=0.8)
+        fig.tight_layout()
+    return fig

@@ -1,0 +1,243 @@
+"""The report: reports/<study>/index.html (self-contained, figures inline), figures as PNG and SVG, tables as CSV.
+
+Built only from saved results (optimum.json, optimum-profile.csv, front.json, window.json, sweep-summary.json and the
+inputs/ copy of the study), so `tubeyield report RESULT_DIR` rebuilds it at any time.
+"""
+
+from __future__ import annotations
+
+import base64
+import datetime as _dt
+import json
+import platform
+from importlib import metadata
+from pathlib import Path
+
+import jinja2
+import pandas as pd
+
+from tubeyield import __version__
+from tubeyield.errors import StudyError
+from tubeyield.report import figures
+from tubeyield.report.files import write_atomic
+from tubeyield.report.text import CAUTION
+
+TEMPLATES = Path(__file__).parent / "templates"
+
+
+def fmt(v, digits: int = 5) -> str:
+    if v is None:
+        return "-"
+    if isinstance(v, float):
+        return f"{v:.{digits}g}"
+    return str(v)
+
+
+def _load_json(path: Path):
+    if not path.exists():
+        return None
+    try:
+        return json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, json.JSONDecodeError) as exc:
+        raise StudyError(str(path), f"a result file written by tubeyield ({exc})") from None
+
+
+def _study_from_inputs(result_dir: Path):
+    from tubeyield.study import load_study
+    inputs = result_dir / "inputs"
+    candidates = sorted(p for p in inputs.glob("*.toml")) if inputs.is_dir() else []
+    for p in candidates:
+        try:
+            text = p.read_text(encoding="utf-8")
+        except OSError:
+            continue
+        if "[goal]" in text:
+            return load_study(p), candidates
+    raise StudyError(str(inputs), "the study's inputs as saved by 'tubeyield optimize --save' (no study file with a "
+                                  "[goal] table found)")
+
+
+def build_report(result_dir, out_dir=None) -> Path:
+    """Write the report for the results in `result_dir` to `out_dir` (default reports/<study>); return index.html."""
+    result_dir = Path(result_dir)
+    if not result_dir.is_dir():
+        raise StudyError(str(result_dir), "a directory of saved results (from --save)")
+    study, input_files = _study_from_inputs(result_dir)
+    out = Path(out_dir) if out_dir else Path("reports") / study.name
+    fig_dir, tab_dir = out / "figures", out / "tables"
+    optimum = _load_json(result_dir / "optimum.json")
+    front = _load_json(result_dir / "front.json")
+    window_d = _load_json(result_dir / "window.json")
+    sweep = _load_json(result_dir / "sweep-summary.json")
+    figs: dict = {}
+    tables: dict = {}
+
+    if optimum:
+        tables["decisions"], tables["limits"] = _optimum_tables(optimum, tab_dir)
+        profile_csv = result_dir / "optimum-profile.csv"
+        if profile_csv.exists():
+            profile = pd.read_csv(profile_csv)
+            write_atomic(tab_dir / "profile.csv", profile.to_csv(index=False))
+            figs["profiles"] = _inline(figures.save(
+                figures.profiles(profile, study.symbols, f"{study.name}: profiles at the optimum"),
+                fig_dir / "profiles"))
+    front_stats, front_decisions = {}, []
+    if front and front.get("points"):
+        figs["front"] = _inline(figures.save(figures.front(front, f"{study.name}: {front['y']} against {front['x']}"),
+                                             fig_dir / "front"))
+        tables["front"], front_decisions = _front_table(front)
+        _front_csv(front, tab_dir / "front.csv")
+        ok = [p for p in front["points"] if p["status"] == "optimal"]
+        front_stats = {"ok": sum(not p["dominated"] for p in ok), "dominated": sum(p["dominated"] for p in ok),
+                       "bad": len(front["points"]) - len(ok),
+                       "worst_check": max((p["check"] or 0.0) for p in ok) if ok else 0.0}
+    window = None
+    if window_d:
+        from tubeyield.jobs.window import WindowResult
+        window = WindowResult.from_dict(window_d)
+        figs["window"] = _inline(figures.save(figures.window_maps(window, f"{study.name}: operating window"),
+                                              fig_dir / "window"))
+        _window_csv(window, tab_dir / "window.csv")
+    if sweep:
+        cols = {k: (v["values"], v.get("unit", "")) for k, v in sweep.get("distributions", {}).items()}
+        if cols:
+            figs["sweep"] = _inline(figures.save(figures.histogram_grid(cols, f"{study.name}: scenario sweep"),
+                                                 fig_dir / "sweep"))
+        if sweep.get("table_csv"):
+            write_atomic(tab_dir / "sweep.csv", sweep["table_csv"])
+
+    from tubeyield.chemistry.consistency import check_network
+    from tubeyield.chemistry.network import Network
+    net = Network.of(study)
+    report = check_network(study)
+    env = jinja2.Environment(loader=jinja2.FileSystemLoader(str(TEMPLATES)), autoescape=True,
+                             undefined=jinja2.StrictUndefined)
+    env.globals["fmt"] = fmt
+    inputs = [(p.name, p.read_text(encoding="utf-8")) for p in input_files]
+    html = env.get_template("report.html").render(
+        study=study, tool=f"tubeyield {__version__}",
+        written=_dt.datetime.now().astimezone().strftime("%Y-%m-%d %H:%M %Z"),
+        study_file=Path(study.path).name, caution=CAUTION, css=(TEMPLATES / "report.css").read_text(),
+        network=_network_context(study, net, report), optimum=optimum, tables=tables, figures=figs,
+        front=front, front_stats=front_stats, front_decisions=front_decisions, window=window,
+        window_fixed=", ".join(f"{k} = {fmt(v)}" for k, v in (window.fixed.items() if window else [])) or "none",
+        window_share=float(window.window.mean()) if window else 0.0, sweep=sweep,
+        points=study.reactor.points, inputs=inputs, provenance=_provenance(),
+        assumptions=_assumptions(study))
+    index = out / "index.html"
+    write_atomic(index, html)
+    return index
+
+
+def _inline(saved: dict) -> dict:
+    return {"b64": base64.b64encode(saved["png"]).decode("ascii"), "png_path": saved["png_path"],
+            "svg_path": saved["svg_path"]}
+
+
+def _optimum_tables(opt: dict, tab_dir: Path):
+    bounds = {(b["decision"], b["side"]) for b in opt.get("bounds", [])}
+    decisions = []
+    for name, d in opt.get("decisions", {}).items():
+        if isinstance(d["value"], list):
+            value = f"profile {fmt(d['min'])} to {fmt(d['max'])} {d['unit']}"
+        else:
+            value = f"{fmt(d['value'])} {d['unit']}".strip()
+        rng = "fixed" if d.get("fixed") else f"{fmt(d['low'])} to {fmt(d['high'])} {d['unit']}".strip()
+        note = "at lower bound" if (name, "low") in bounds else "at upper bound" if (name, "high") in bounds else ""
+        decisions.append({"decision": name, "value": value, "range": rng, "note": note})
+    limits = [{"text": lim["text"], "value": f"{fmt(lim['value'])} {lim['unit']}".strip(), "active": lim["active"],
+               "marginal": f"{lim['marginal']:+.4g} {lim['marginal_unit']}"} for lim in opt.get("limits", [])]
+    limits += [{"text": f"{b['decision']} {'lower' if b['side'] == 'low' else 'upper' if b['side'] == 'high' else 'fixed'}"
+                        f" {'bound' if b['side'] != 'fixed' else 'value'}",
+                "value": f"{fmt(b['bound'])} {b['unit']}".strip(), "active": b["side"] != "fixed",
+                "marginal": f"{b['marginal']:+.4g} {b['marginal_unit']}"} for b in opt.get("bounds", [])]
+    write_atomic(tab_dir / "decisions.csv", pd.DataFrame(decisions).to_csv(index=False))
+    write_atomic(tab_dir / "limits.csv", pd.DataFrame(limits).to_csv(index=False))
+    metrics = [{"metric": k, "value": v["value"], "unit": v["unit"]} for k, v in opt.get("metrics", {}).items()]
+    write_atomic(tab_dir / "metrics.csv", pd.DataFrame(metrics).to_csv(index=False))
+    return decisions, limits
+
+
+def _front_table(front: dict):
+    """The ends, the knee and a few evenly spaced points between them."""
+    pts = front["points"]
+    ok = [i for i, p in enumerate(pts) if p["status"] == "optimal" and not p["dominated"]]
+    if not ok:
+        return [], []
+    chosen = {ok[0]: f"end ({front['y']} best)", ok[-1]: f"end ({front['x']} best)"}
+    if front.get("knee") is not None:
+        chosen.setdefault(front["knee"], "knee")
+    for i in [ok[len(ok) // 4], ok[len(ok) // 2], ok[3 * len(ok) // 4]]:
+        chosen.setdefault(i, f"point {i}")
+    names = [n for n, v in pts[ok[0]]["decisions"].items() if not isinstance(v, list)]
+    rows = []
+    for i in sorted(chosen):
+        p = pts[i]
+        rows.append({"label": chosen[i], "x": fmt(p["x"]), "y": fmt(p["y"]), "trade": fmt(p["trade_off"], 4),
+                     "decisions": [fmt(p["decisions"][n]) for n in names], "active": "; ".join(p["active"])})
+    return rows, names
+
+
+def _front_csv(front: dict, path: Path) -> None:
+    rows = []
+    for i, p in enumerate(front["points"]):
+        row = {"point": i, "status": p["status"], "dominated": p["dominated"], "knee": i == front.get("knee"),
+               "level": p["level"], front["x"]: p["x"], front["y"]: p["y"], "trade_off_dy_dx": p["trade_off"],
+               "check_max_rel_error": p["check"]}
+        row.update({f"decision:{k}": (v if not isinstance(v, list) else None) for k, v in p["decisions"].items()})
+        row.update(p["metrics"])
+        row["active"] = "; ".join(p["active"])
+        rows.append(row)
+    write_atomic(path, pd.DataFrame(rows).to_csv(index=False))
+
+
+def _window_csv(w, path: Path) -> None:
+    rows = []
+    for j, yv in enumerate(w.y_values):
+        for i, xv in enumerate(w.x_values):
+            row = {f"{w.x} [{w.x_unit}]": xv, f"{w.y} [{w.y_unit}]": yv}
+            row.update({k: v[j, i] for k, v in w.maps.items()})
+            row.update({f"holds: {k}": bool(v[j, i]) for k, v in w.holds.items()})
+            row["window"] = bool(w.window[j, i])
+            rows.append(row)
+    write_atomic(path, pd.DataFrame(rows).to_csv(index=False))
+
+
+def _network_context(study, net, report) -> dict:
+    import math
+    inlet = study.feed.inlet()
+    species = [{"symbol": s.symbol, "label": s.label, "formula": s.formula or "", "Cp": fmt(s.Cp) if s.Cp else "",
+                "feed": (f"{inlet[s.symbol] / 1000:.4g} mol/L" if study.feed.phase == "liquid" else
+                         f"y = {inlet[s.symbol]:.4g}") if inlet.get(s.symbol) else ""} for s in study.species]
+    reactions = [{"id": r.id, "equation": r.equation, "law": r.law,
+                  "orders": ", ".join(f"{s}: {n:g}" for s, n in r.orders),
+                  "k": f"{math.exp(r.rate.ln_k_ref):.4g}", "T_ref": fmt(r.rate.T_ref), "Ea": fmt(r.rate.Ea / 1000),
+                  "dH": fmt(r.dH / 1000) if r.dH is not None else ""} for r in study.reactions]
+    matrix = [{"species": s, "values": [f"{v:g}" for v in row]} for s, row in zip(net.species, net.matrix)]
+    return {"species": species, "reactions": reactions, "matrix": matrix, "reaction_ids": net.reaction_ids,
+            "rank": net.rank, "independent": ", ".join(net.independent_reactions()),
+            "consistent": "consistent" if report.consistent else "INCONSISTENT",
+            "elements": ("balanced" if not report.element_errors else "NOT balanced")
+                        if any(s.formula for s in study.species) else "not checked (no formulas)",
+            "warnings": report.warnings, "errors": report.errors()}
+
+
+def _assumptions(study) -> str:
+    parts = ["constant density" if study.feed.phase == "liquid" else "ideal gas at constant pressure"]
+    parts.append({"isothermal": "a uniform temperature", "zones": "uniform temperature in each zone",
+                  "free": "a temperature profile that can be imposed exactly",
+                  "adiabatic": "no heat exchange", "cooled": "a uniform coolant temperature and wall coefficient"}
+                 [study.reactor.heat])
+    return ", ".join(parts)
+
+
+def _provenance() -> list:
+    rows = [("tool", f"tubeyield {__version__}"), ("python", platform.python_version()),
+            ("machine", f"{platform.system()} {platform.machine()}")]
+    for pkg in ("pyomo", "casadi", "scipy", "numpy", "highspy", "pint", "matplotlib", "jinja2"):
+        try:
+            rows.append((pkg, metadata.version(pkg)))
+        except metadata.PackageNotFoundError:
+            pass
+    rows.append(("NLP solver", "Ipopt (bundled in the casadi wheel), through Pyomo's NL writer"))
+    return rows

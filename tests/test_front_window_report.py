@@ -1,0 +1,177 @@
+"""Fronts (epsilon-constraint, Haimes, Lasdon and Wismer 1971), window maps and the HTML report."""
+
+import dataclasses
+import json
+import subprocess
+import sys
+from html.parser import HTMLParser
+
+import numpy as np
+import pytest
+
+from helpers import SCENARIOS, study_from_toml
+from tubeyield.jobs.front import front
+from tubeyield.jobs.optimize import optimize
+from tubeyield.jobs.window import window
+from tubeyield.reactor.simulate import simulate
+from tubeyield.solve.multistart import violation
+from tubeyield.study import load_study
+from tubeyield.study.schema import WindowSpec
+
+
+@pytest.fixture(scope="module")
+def demo():
+    return load_study(SCENARIOS / "oxidation.toml")
+
+
+@pytest.fixture(scope="module")
+def demo_front(demo):
+    return front(demo, points=11)
+
+
+def test_front_is_monotone_and_non_dominated(demo_front):
+    pts = demo_front.front_points()
+    assert demo_front.status == "done" and len(pts) == 11
+    x = np.array([p["x"] for p in pts])
+    y = np.array([p["y"] for p in pts])
+    # both maximized: along increasing x, y must fall (a trade-off), and no point may dominate another
+    assert np.all(np.diff(x) > 0) and np.all(np.diff(y) < 0)
+    for i in range(len(pts)):
+        for j in range(len(pts)):
+            if i != j:
+                assert not (x[j] >= x[i] and y[j] >= y[i])
+    assert all(p["check"] < 1e-6 for p in pts)
+    assert all(p["trade_off"] > 0 for p in pts[1:])        # dy/dx of the level constraint: giving up y buys x
+
+
+def test_front_ends_equal_single_metric_optima(demo, demo_front):
+    spec = demo.front
+    y_best = optimize(dataclasses.replace(demo, goal=dataclasses.replace(demo.goal, metric=spec.y)))
+    x_best = optimize(dataclasses.replace(demo, goal=dataclasses.replace(demo.goal, metric=spec.x)))
+    pts = demo_front.front_points()
+    assert pts[0]["y"] == pytest.approx(y_best.goal["value"], rel=1e-6)
+    assert pts[-1]["x"] == pytest.approx(x_best.goal["value"], rel=1e-6)
+
+
+def test_front_knee_is_the_farthest_point_from_the_chord(demo_front):
+    pts = demo_front.points
+    k = demo_front.knee
+    assert 0 < k < len(pts) - 1
+    x = np.array([p["x"] for p in pts])
+    y = np.array([p["y"] for p in pts])
+    xr, yr = (x - x[0]) / (x[-1] - x[0]), (y - y[-1]) / (y[0] - y[-1])
+    assert k == int(np.argmax(xr + yr))
+
+
+def test_dominated_points_are_marked():
+    from tubeyield.jobs.front import _mark_dominated
+    pts = [{"status": "optimal", "x": 1.0, "y": 3.0, "dominated": False},
+           {"status": "optimal", "x": 2.0, "y": 2.0, "dominated": False},
+           {"status": "optimal", "x": 1.5, "y": 1.0, "dominated": False},     # dominated by (2, 2)
+           {"status": "infeasible", "x": None, "y": None, "dominated": False}]
+    _mark_dominated(pts, "max", "max")
+    assert [p["dominated"] for p in pts] == [False, False, True, False]
+
+
+def _feasible_by_simulation(study, point):
+    return violation(study, simulate(study, point)) <= 1e-9
+
+
+def test_window_feasible_region_agrees_with_direct_simulation(demo):
+    opt = optimize(demo)
+    w = window(demo, opt.decisions_si)
+    assert w.maps["yield:B"].shape == (60, 60)
+    rng = np.random.default_rng(1)
+    for _ in range(25):
+        i, j = rng.integers(60), rng.integers(60)
+        point = dict(opt.decisions_si, tau=float(w.x_values[i] * 60.0), T=float(w.y_values[j]))
+        sim = simulate(demo, point)
+        assert w.maps["yield:B"][j, i] == pytest.approx(sim.metric(demo.goal.metric), abs=1e-7)
+        assert bool(w.window[j, i]) == _feasible_by_simulation(demo, point)
+    # the optimum lies in (or on the edge of) the window
+    assert w.window.any()
+
+
+def test_window_cell_by_cell_for_zones_agrees_with_simulation():
+    text = (SCENARIOS / "oxidation.toml").read_text().replace('heat = "isothermal"', 'heat = "zones"\nzones = 2') \
+        .replace('x = "tau"\ny = "T"\npoints = [60, 60]', 'x = "T.1"\ny = "T.2"\npoints = [5, 4]')
+    net = (SCENARIOS / "oxidation-network.toml").read_text()
+    study = study_from_toml(text.replace('include = "oxidation-network.toml"', "") + net)
+    base = {"tau": 180.0, "T.1": 350.0, "T.2": 330.0, "ratio.O": 2.0}
+    w = window(study, base, workers=2)
+    assert "per cell" in w.method
+    for j, t2 in enumerate(w.y_values):
+        for i, t1 in enumerate(w.x_values):
+            point = dict(base, **{"T.1": float(t1), "T.2": float(t2)})
+            assert bool(w.window[j, i]) == _feasible_by_simulation(study, point)
+            assert w.maps["yield:B"][j, i] == pytest.approx(simulate(study, point).metric(study.goal.metric), abs=1e-7)
+
+
+def test_window_with_others_optimized_is_at_least_the_fixed_map(demo):
+    small = dataclasses.replace(demo, window=WindowSpec("tau", "T", (4, 3), "optimized"))
+    opt = optimize(demo)
+    w_opt = window(small, opt.decisions_si)
+    w_fix = window(dataclasses.replace(small, window=dataclasses.replace(small.window, others="optimum")),
+                   opt.decisions_si)
+    # re-optimizing ratio.O in each cell can only improve the goal where the cell's optimum meets the limits
+    better = w_opt.maps["yield:B"] >= w_fix.maps["yield:B"] - 1e-7
+    assert better[w_opt.window].all()
+
+
+class _Sections(HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.ids, self.images, self.tables, self.text = set(), [], 0, []
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        if "id" in a:
+            self.ids.add(a["id"])
+        if tag == "img":
+            self.images.append(a.get("src", ""))
+        if tag == "table":
+            self.tables += 1
+
+    def handle_data(self, data):
+        self.text.append(data)
+
+
+def _cli(*args, cwd=None):
+    return subprocess.run([sys.executable, "-m", "tubeyield", *args], capture_output=True, text=True, timeout=600,
+                          cwd=cwd)
+
+
+def test_cli_pipeline_writes_a_complete_report(tmp_path):
+    study = SCENARIOS / "oxidation.toml"
+    res = tmp_path / "results"
+    assert _cli("optimize", str(study), "--save", str(res)).returncode == 0
+    r = _cli("front", str(study), "--points", "7", "--save", str(res))
+    assert r.returncode == 0, r.stderr
+    r = _cli("window", str(study), "--at", str(res / "optimum.json"), "--save", str(res))
+    assert r.returncode == 0, r.stderr
+    out = tmp_path / "report"
+    r = _cli("report", str(res), "--out", str(out))
+    assert r.returncode == 0, r.stderr
+    html = (out / "index.html").read_text()
+    p = _Sections()
+    p.feed(html)
+    for section in ("network", "optimum", "profiles", "front", "window", "verification", "inputs", "provenance",
+                    "cautions"):
+        assert section in p.ids, section
+    assert len(p.images) == 3 and all(src.startswith("data:image/png;base64,") for src in p.images)
+    text = " ".join(p.text)
+    for needle in ("What limits the optimum", "marginal", "knee", "calorimetry", "hazard study", "tubeyield 0.1.0",
+                   "[goal]", "operating window", "stoichiometric", "passed"):
+        assert needle.lower() in text.lower(), needle
+    for fig in ("profiles", "front", "window"):
+        assert (out / "figures" / f"{fig}.png").stat().st_size > 1000
+        assert (out / "figures" / f"{fig}.svg").read_text().lstrip().startswith("<?xml")
+    for table in ("decisions", "limits", "metrics", "profile", "front", "window"):
+        assert (out / "tables" / f"{table}.csv").stat().st_size > 50
+    front_data = json.loads((res / "front.json").read_text())
+    assert front_data["status"] == "done" and len(front_data["points"]) == 7
+
+
+def test_report_of_a_missing_directory_is_a_user_error(tmp_path):
+    r = _cli("report", str(tmp_path / "nothing"))
+    assert r.returncode == 2 and "error:" in r.stderr and "Traceback" not in r.stderr
