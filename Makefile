@@ -20,7 +20,6 @@ demo: $(VENV)/.installed
 	$(BIN)/tubeyield front $(STUDY) --save reports/results/oxidation
 	$(BIN)/tubeyield window $(STUDY) --at reports/results/oxidation/optimum.json --save reports/results/oxidation
 	$(BIN)/tubeyield report reports/results/oxidation --out reports/oxidation
-	@echo "report written: reports/oxidation/index.html"
 
 test: $(VENV)/.installed
 	$(BIN)/python -m pytest -q
