@@ -4,7 +4,7 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STUDY  ?= scenarios/oxidation.toml
 
-.PHONY: demo test bench clean
+.PHONY: demo sweep test bench clean
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -19,6 +19,13 @@ demo: $(VENV)/.installed
 	$(BIN)/tubeyield optimize $(STUDY) --save reports/results/oxidation
 	$(BIN)/tubeyield front $(STUDY) --save reports/results/oxidation
 	$(BIN)/tubeyield window $(STUDY) --at reports/results/oxidation/optimum.json --save reports/results/oxidation
+	$(BIN)/tubeyield report reports/results/oxidation --out reports/oxidation
+
+# The demo study's 200-scenario kinetic-uncertainty sweep (resumable: run it again after Ctrl-C), its summary
+# and the report with the sweep section.
+sweep: $(VENV)/.installed
+	$(BIN)/tubeyield sweep $(STUDY) --store reports/results/oxidation-sweep.sqlite --resume
+	$(BIN)/tubeyield sweep-report reports/results/oxidation-sweep.sqlite --save reports/results/oxidation
 	$(BIN)/tubeyield report reports/results/oxidation --out reports/oxidation
 
 test: $(VENV)/.installed

@@ -93,7 +93,8 @@ def test_window_feasible_region_agrees_with_direct_simulation(demo):
 
 
 def test_window_cell_by_cell_for_zones_agrees_with_simulation():
-    text = (SCENARIOS / "oxidation.toml").read_text().replace('heat = "isothermal"', 'heat = "zones"\nzones = 2') \
+    text = (SCENARIOS / "oxidation.toml").read_text().split("[sweep]")[0]
+    text = text.replace('heat = "isothermal"', 'heat = "zones"\nzones = 2') \
         .replace('x = "tau"\ny = "T"\npoints = [60, 60]', 'x = "T.1"\ny = "T.2"\npoints = [5, 4]')
     net = (SCENARIOS / "oxidation-network.toml").read_text()
     study = study_from_toml(text.replace('include = "oxidation-network.toml"', "") + net)

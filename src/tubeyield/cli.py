@@ -53,6 +53,21 @@ def _parser() -> argparse.ArgumentParser:
     w.add_argument("--json", action="store_true")
     w.add_argument("--save", metavar="DIR", help="write window.json to DIR")
 
+    sw = sub.add_parser("sweep", help="run every scenario of [sweep] into a SQLite store")
+    sw.add_argument("study")
+    sw.add_argument("--store", required=True, metavar="SQLITE", help="the result store (created if missing)")
+    sw.add_argument("--workers", type=int, help="local worker processes (default: all cores)")
+    sw.add_argument("--dask", metavar="ADDRESS", help="run on an existing Dask scheduler, e.g. tcp://10.0.0.5:8786")
+    sw.add_argument("--resume", action="store_true", help="run only the scenarios the store does not hold yet")
+    sw.add_argument("--quiet", action="store_true", help="no progress bar")
+
+    sr = sub.add_parser("sweep-report", help="summarize a sweep store: distributions, influence, robustness")
+    sr.add_argument("store")
+    sr.add_argument("--study", help="the study file (default: the copy kept in the store)")
+    sr.add_argument("--save", metavar="DIR", help="write sweep-summary.json (and the inputs) to DIR for the report")
+    sr.add_argument("--workers", type=int)
+    sr.add_argument("--json", action="store_true")
+
     r = sub.add_parser("report", help="build the HTML report from saved results")
     r.add_argument("results", help="a directory written by --save")
     r.add_argument("--out", metavar="DIR", help="where to write the report (default: reports/<study>)")
@@ -240,6 +255,48 @@ def _window(args) -> int:
     return EXIT_OK
 
 
+def _sweep(args) -> int:
+    from tubeyield.jobs.sweep import sweep
+    from tubeyield.study import load_study
+
+    study = load_study(args.study)
+    if study.sweep is None:
+        raise StudyError(f"{args.study}: sweep", "a [sweep] table with 'vary'")
+    if args.workers is not None and args.workers < 1:
+        raise StudyError("--workers", f"a positive number of processes, got {args.workers}")
+    out = sweep(study, args.store, workers=args.workers, dask=args.dask, resume=args.resume, progress=not args.quiet)
+    done = ", ".join(f"{v} {k}" for k, v in sorted(out.counts.items())) or "none"
+    print(f"{study.name}: {out.total} scenarios; {out.already} already in the store; ran {out.ran} on {out.where} "
+          f"in {out.seconds:.1f} s ({done})")
+    if out.interrupted:
+        print(f"interrupted: the store keeps every finished scenario; run again with --resume to finish",
+              file=sys.stderr)
+        return 130
+    return EXIT_OK
+
+
+def _sweep_report(args) -> int:
+    from pathlib import Path
+
+    from tubeyield.jobs.sweep_summary import summarize
+    from tubeyield.report.files import write_json
+    from tubeyield.study import load_study
+
+    study = load_study(args.study) if args.study else None
+    summary = summarize(args.store, study, workers=args.workers)
+    if args.save:
+        write_json(Path(args.save) / "sweep-summary.json", summary)
+        if study is not None:
+            from tubeyield.report.files import save_inputs
+            save_inputs(args.save, study)
+    if args.json:
+        _print_json({k: v for k, v in summary.items() if k != "table_csv"})
+        return EXIT_OK
+    from tubeyield.report.text import sweep_summary
+    print(sweep_summary(summary))
+    return EXIT_OK
+
+
 def _report(args) -> int:
     from tubeyield.report.html import build_report
     index = build_report(args.results, args.out)
@@ -248,4 +305,4 @@ def _report(args) -> int:
 
 
 JOBS = {"check": _check, "optimize": _optimize, "simulate": _simulate, "front": _front, "window": _window,
-        "report": _report}
+        "report": _report, "sweep": _sweep, "sweep-report": _sweep_report}

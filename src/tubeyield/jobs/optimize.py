@@ -39,7 +39,10 @@ def prepare(study: Study, elements: int | None = None, scale_hint: float | None 
     return model
 
 
-def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=None, tee: bool = False) -> Result:
+def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=None, tee: bool = False,
+             model: ReactorModel | None = None) -> Result:
+    """The best operating point of `study`. `model` (optional) is a prepared model of the same structure, reused
+    with the study's parameter values (sweeps); otherwise one is built."""
     t_start = time.perf_counter()
     numerics = study.numerics
     solver = solver or make_solver(numerics)
@@ -53,7 +56,11 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
         return _failed(study, "the reference simulation failed at every starting point", timing)
 
     t = time.perf_counter()
-    model = prepare(study, scale_hint=candidates[0].goal)
+    reuse = model is not None
+    if reuse:
+        model.set_parameters(study)
+    else:
+        model = prepare(study, scale_hint=candidates[0].goal)
     timing["build"] = time.perf_counter() - t
 
     closest = None
@@ -72,7 +79,7 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
         model.set_decisions(cand.decisions)
         model.initialize(cand.simulation)
         t = time.perf_counter()
-        res = solver.solve(model.m, options=options, reuse_structure=i > 0, tee=tee)
+        res = solver.solve(model.m, options=options, reuse_structure=i > 0 or reuse, tee=tee)
         timing["solve"] += time.perf_counter() - t
         ok = res.solver.termination_condition in OK_CONDITIONS
         run = {"start": _user_decisions(study, cand.decisions), "status": str(res.solver.termination_condition),

@@ -274,8 +274,13 @@ class ReactorModel:
         return {"values": values, "dual": list(self.m.dual.items()), "rc": list(self.m.rc.items())}
 
     def restore(self, snap: dict) -> None:
+        """Put back a snapshot's values. Pinned variables (parameters, fixed decisions) keep the value their bounds
+        give now: the snapshot may come from another scenario."""
         for v, x in snap["values"]:
-            v.set_value(x, skip_validation=True)
+            if v.lb is not None and v.lb == v.ub:
+                v.set_value(v.lb, skip_validation=True)
+            else:
+                v.set_value(x, skip_validation=True)
         self.m.dual.clear()
         self.m.rc.clear()
         for c, x in snap["dual"]:

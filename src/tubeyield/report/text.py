@@ -143,3 +143,27 @@ def window_summary(w) -> str:
     out.append(f"time: {w.timing.get('total', 0):.2f} s")
     out += ["", CAUTION]
     return "\n".join(out)
+
+
+def sweep_summary(summary: dict) -> str:
+    out = [f"sweep store {summary['store']}: {summary['n']} scenarios ({summary['counts']}); run: {summary['run']}"]
+    for name, d in summary["distributions"].items():
+        import numpy as np
+        v = np.array([x for x in d["values"] if x is not None], dtype=float)
+        if v.size:
+            p5, p50, p95 = np.percentile(v, [5, 50, 95])
+            out.append(f"  {name:<14} median {_fmt(p50)}  5-95 % {_fmt(p5)} to {_fmt(p95)} {d['unit']}".rstrip())
+    if summary["influence"]:
+        out.append(f"what matters most for {summary['goal']} (Spearman rank correlation)")
+        for row in summary["influence"]:
+            out.append(f"  {row['path']:<28} {row['rho']:+.3f}")
+    rb = summary.get("robust")
+    if rb:
+        out.append(f"robustness over {rb['scenarios']} scenarios (every limit holds in at least "
+                   f"{100 * rb['target']:.0f} %):")
+        for row in rb["rows"]:
+            vals = ", ".join(f"{n} {v}" for n, v in zip(rb["decisions"], row["values"]))
+            out.append(f"  {row['label']:<28} {100 * row['share']:5.1f} %  mean {_fmt(row['mean'])}  ({vals})")
+        out.append(f"  {rb['text']}")
+    out += ["", CAUTION]
+    return "\n".join(out)

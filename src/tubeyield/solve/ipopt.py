@@ -356,6 +356,9 @@ def _load(model, written: _Written, built: _Built, sol) -> None:
     lam_p = np.array(sol["lam_p"]).ravel() if len(built.pinned) else np.zeros(0)
     for i, value in zip(built.free, x):
         written.variables[i].set_value(float(value), skip_validation=True)
+    for i in built.pinned:                   # a pinned variable's value is its bound
+        v = written.variables[i]
+        v.set_value(v.lb, skip_validation=True)
     sense = written.sense
     dual = _import_suffix(model, "dual")
     if dual is not None:

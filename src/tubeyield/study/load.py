@@ -690,8 +690,30 @@ def _read_sweep(t: Table | None, study: Study) -> SweepSpec | None:
     share = _number(t.take("share", 0.95), t.key("share"))
     if not 0 < share <= 1:
         raise StudyError(t.key("share"), f"a share between 0 and 1, got {share:g}")
+    cand_t = t.table("candidates", {}, what="a table of named operating points, e.g. { safe = { tau = '5 min' } }")
+    candidates = []
+    for name, body in cand_t.data.items():
+        key = cand_t.key(name)
+        ct = Table(body, key)
+        values = {}
+        for d in study.decisions:
+            kind = {"s": "time", "K": "temperature", "": "dimensionless"}[d.si_unit]
+            if ct.has(d.name):
+                values[d.name] = to_si(ct.take(d.name), kind, ct.key(d.name))
+                if not d.low - 1e-12 * abs(d.low) <= values[d.name] <= d.high + 1e-12 * abs(d.high):
+                    raise StudyError(ct.key(d.name), f"a value within the decision's range in [operate]")
+            elif d.fixed:
+                values[d.name] = d.low
+            else:
+                raise StudyError(ct.key(d.name), "a value for every decision with a range; the key is missing")
+        ct.close(tuple(d.name for d in study.decisions))
+        candidates.append((name, tuple(values.items())))
+    cand_t.seen.update(cand_t.data)
+    if run == "evaluate" and not candidates and any(not d.fixed for d in study.decisions):
+        raise StudyError(t.key("candidates"), "named operating points to evaluate (run = 'evaluate'), or a study "
+                                              "whose decisions are all fixed")
     t.close()
-    return SweepSpec(vary, samples, seed, run, time_limit, share)
+    return SweepSpec(vary, samples, seed, run, time_limit, share, tuple(candidates))
 
 
 # ------------------------------------------------------------------------------------------------- cross checks

@@ -203,6 +203,7 @@ class SweepSpec:
     run: str = "optimize"         # optimize | front | evaluate
     time_limit: float = 300.0     # seconds per scenario
     share: float = 0.95           # robustness: share of samples in which every limit must hold
+    candidates: tuple[tuple[str, tuple[tuple[str, float], ...]], ...] = ()   # named operating points (SI)
 
 
 @dataclass(frozen=True)

@@ -75,7 +75,12 @@ def to_si(value, kind: str, key: str) -> float:
     target = _unit(si_unit)
     if q.dimensionality != target.dimensionality:
         raise StudyError(key, f"{example}; got {value!r}, which has dimension {_dims(q)}")
-    return float(q.to(target).magnitude)
+    return _clean(float(q.to(target).magnitude))
+
+
+def _clean(x: float) -> float:
+    """Drop the last-bit noise of unit factors (1 mol/L -> 1000.0 mol/m^3, not 999.9999999999999)."""
+    return float(f"{x:.15g}")
 
 
 def rate_constant_to_si(value, concentration_power: float, key: str, *, per: str = "time") -> float:
@@ -93,7 +98,7 @@ def rate_constant_to_si(value, concentration_power: float, key: str, *, per: str
         example = _example_rate_unit(concentration_power, per)
         raise StudyError(key, f"a quantity of dimension {need} (for example {example!r}); got {value!r}, "
                               f"which has dimension {_dims(q)}")
-    return float(ratio.magnitude)
+    return _clean(float(ratio.magnitude))
 
 
 def _pretty_power(p: float) -> str:

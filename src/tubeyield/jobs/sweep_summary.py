@@ -1,0 +1,259 @@
+"""Summary of a sweep store: distributions, which variations matter, and how robust candidate operating points are.
+
+- Influence: Spearman's rank correlation between each varied input and the optimum and each optimal decision
+  (C. Spearman, Am. J. Psychol. 15 (1904) 72; scipy.stats.spearmanr): monotone effects, insensitive to scale.
+- Robustness: a candidate operating point is simulated in every scenario; its reliability is the share of scenarios
+  in which every limit holds. The recommended point is the candidate with the best mean goal among those meeting the
+  limits in at least the study's share (sweep.share) of the scenarios: a sampled chance constraint (sample average
+  approximation; A. Shapiro, D. Dentcheva and A. Ruszczynski, Lectures on Stochastic Programming, SIAM 2009, ch. 5),
+  over a finite pool of candidates: the nominal optimum, the study's named candidates, the median of the scenario
+  optima, scenario optima spread over the range of the goal, and a backed-off optimum. It is the best of that pool,
+  not a global optimum.
+- Back-off: optima sit on active limits, so they hold in about half of the scenarios at best. The backed-off optimum
+  is the nominal problem re-optimized with every limit tightened by b standard deviations of its quantity over the
+  scenarios (at the nominal optimum), with the smallest b, found by bisection, that meets the target share (the
+  back-off idea of design under uncertainty; e.g. V. Bahri, J. A. Bandoni and J. A. Romagnoli, AIChE J. 42 (1996) 983).
+"""
+
+from __future__ import annotations
+
+import tempfile
+import tomllib
+from pathlib import Path
+
+import numpy as np
+
+from tubeyield.errors import StudyError
+from tubeyield.jobs.scenario import apply_values
+from tubeyield.jobs.store import open_existing
+from tubeyield.study.schema import Study
+from tubeyield.study.units import convert
+
+MAX_POOL = 12   # scenario optima added to the candidate pool
+
+
+def study_of_store(meta: dict) -> Study:
+    """Rebuild the study from the text the store keeps (the study and its included files)."""
+    from tubeyield.study import load_study
+    text = meta.get("study")
+    if not text:
+        raise StudyError("meta.study", "a store written by 'tubeyield sweep' (it keeps the study text)")
+    parts = text.split("\n# --- ")
+    main, includes = parts[0], parts[1:]
+    with tempfile.TemporaryDirectory() as tmp:
+        tmp = Path(tmp)
+        doc = tomllib.loads(main)
+        inc = doc.get("study", {}).get("include", [])
+        inc = [inc] if isinstance(inc, str) else inc
+        by_name = {}
+        for block in includes:
+            path, _, body = block.partition("\n")
+            by_name[Path(path).name] = body
+        for rel in inc:
+            target = tmp / rel
+            target.parent.mkdir(parents=True, exist_ok=True)
+            target.write_text(by_name.get(Path(rel).name, ""))
+        (tmp / "study.toml").write_text(main)
+        return load_study(tmp / "study.toml")
+
+
+def _user(study: Study, name: str, v):
+    d = study.decision(name)
+    if isinstance(v, list):
+        return None
+    return convert(v, d.si_unit, d.unit) if d.unit else v
+
+
+def _evaluate_candidate(args):
+    """Simulate one point in each of the given scenarios: [(goal, every limit holds, [limit quantities, SI])]."""
+    from tubeyield.jobs.optimize import metric_display
+    from tubeyield.reactor.simulate import simulate
+    from tubeyield.solve.multistart import violation
+    study, point, scenario_values = args
+    out = []
+    for values in scenario_values:
+        try:
+            sc = apply_values(study, values)
+            sim = simulate(sc, point, rtol=1e-8)
+            limits = [(sim.max_temperature() if lim.sense == "<=" else sim.min_temperature()) if lim.metric is None
+                      else sim.metric(lim.metric) for lim in sc.goal.limits]
+            goal = metric_display(sc.goal.metric, sim.metric(sc.goal.metric))[0]
+            out.append((goal, violation(sc, sim) <= 1e-9, limits))
+        except Exception:  # a scenario where the point cannot be simulated counts as missing the limits
+            out.append((float("nan"), False, [float("nan")] * len(study.goal.limits)))
+    return out
+
+
+def _evaluate_points(study: Study, points: list[dict], scenario_values: list[dict], pool) -> list[list]:
+    """Every point in every scenario, spread over the process pool (or here when `pool` is None) in chunks."""
+    n_workers = pool._max_workers if pool is not None else 1
+    chunks = max(1, min(n_workers * 2, len(scenario_values) // 20 or 1))
+    parts = [scenario_values[i::chunks] for i in range(chunks)]
+    order = [list(range(len(scenario_values)))[i::chunks] for i in range(chunks)]
+    jobs = [(study, p, part) for p in points for part in parts]
+    if pool is not None and len(jobs) > 1:
+        results = list(pool.map(_evaluate_candidate, jobs))
+    else:
+        results = [_evaluate_candidate(j) for j in jobs]
+    out = []
+    for k in range(len(points)):
+        merged = [None] * len(scenario_values)
+        for c in range(chunks):
+            for idx, res in zip(order[c], results[k * chunks + c]):
+                merged[idx] = res
+        out.append(merged)
+    return out
+
+
+def _tightened(study: Study, b: float, spread: list[float]) -> Study:
+    import dataclasses
+    limits = []
+    for lim, s in zip(study.goal.limits, spread):
+        bound = lim.bound + b * s if lim.sense == ">=" else lim.bound - b * s
+        limits.append(dataclasses.replace(lim, bound=bound))
+    return dataclasses.replace(study, goal=dataclasses.replace(study.goal, limits=tuple(limits)))
+
+
+def _back_off(study: Study, nominal_results, scenario_values, pool, target: float):
+    """The smallest back-off b (bisection) whose re-optimized point meets every limit in `target` of the
+    scenarios. Returns (label, point, results) or None."""
+    from tubeyield.jobs.optimize import optimize
+    spread = []
+    for k in range(len(study.goal.limits)):
+        v = np.array([r[2][k] for r in nominal_results], dtype=float)
+        spread.append(float(np.nanstd(v)) if np.isfinite(v).any() else 0.0)
+    if not any(s > 0 for s in spread):
+        return None
+    cache = {}
+
+    def trial(b):
+        if b not in cache:
+            r = optimize(_tightened(study, b, spread), starts=2)
+            if r.status != "optimal":
+                cache[b] = (None, None, 0.0)
+            else:
+                res = _evaluate_points(study, [r.decisions_si], scenario_values, pool)[0]
+                cache[b] = (dict(r.decisions_si), res, float(np.mean([x[1] for x in res])))
+        return cache[b]
+
+    lo, hi = 0.0, 1.0
+    while trial(hi)[2] < target and hi < 8.0 and trial(hi)[0] is not None:
+        lo, hi = hi, hi * 2
+    if trial(hi)[0] is None or trial(hi)[2] < target:
+        return None
+    for _ in range(7):
+        mid = 0.5 * (lo + hi)
+        if trial(mid)[0] is not None and trial(mid)[2] >= target:
+            hi = mid
+        else:
+            lo = mid
+    point, res, _ = trial(hi)
+    return (f"backed-off optimum (limits tightened by {hi:.2f} sd)", point, res)
+
+
+def summarize(store_path, study: Study | None = None, *, workers: int | None = None, robust: bool = True) -> dict:
+    store = open_existing(store_path)
+    try:
+        meta = store.meta()
+        rows = store.rows()
+        table = store.table()
+    finally:
+        store.close()
+    study = study or study_of_store(meta)
+    counts: dict = {}
+    for r in rows:
+        counts[r["status"]] = counts.get(r["status"], 0) + 1
+    good = [r for r in rows if r["status"] in ("optimal", "evaluated") and r["goal"] is not None]
+    goal = study.goal.metric.text
+    summary = {"store": str(store_path), "n": len(rows), "counts": ", ".join(f"{v} {k}" for k, v in sorted(counts.items())),
+               "counts_by_status": counts, "run": meta.get("run", ""), "goal": goal, "share": study.sweep.share,
+               "distributions": {}, "influence": [], "robust": None,
+               "table_csv": table.to_csv(index=False) if len(table) else ""}
+    if not good:
+        return summary
+    dist = {goal: {"values": [r["goal"] for r in good], "unit": ""}}
+    free = [d for d in study.decisions if not d.fixed]
+    if meta.get("run") == "optimize":
+        for d in free:
+            vals = [_user(study, d.name, r["decisions"].get(d.name)) for r in good if r["decisions"]]
+            if all(v is not None for v in vals):
+                dist[d.name] = {"values": vals, "unit": d.unit}
+    summary["distributions"] = dist
+
+    from scipy.stats import spearmanr
+    for v in study.sweep.vary:
+        x = np.array([r["inputs"][v.path] for r in good], dtype=float)
+        if np.ptp(x) == 0:
+            continue
+        row = {"path": v.path}
+        y = np.array([r["goal"] for r in good], dtype=float)
+        row["rho"] = float(spearmanr(x, y).statistic) if np.ptp(y) > 0 else 0.0
+        for name in dist:
+            if name == goal:
+                continue
+            yy = np.array(dist[name]["values"], dtype=float)
+            row[f"rho:{name}"] = float(spearmanr(x, yy).statistic) if np.ptp(yy) > 0 else 0.0
+        summary["influence"].append(row)
+    summary["influence"].sort(key=lambda r: -abs(r["rho"]))
+
+    if robust and free:
+        summary["robust"] = _robustness(study, rows, good, workers)
+    return summary
+
+
+def _robustness(study: Study, rows, good, workers) -> dict:
+    scenario_values = [r["inputs"] for r in rows if r["status"] != "failed" or "invalid scenario" not in (r["error"] or "")]
+    pool: list[tuple[str, dict]] = []
+    from tubeyield.jobs.optimize import optimize
+    nominal = optimize(study)
+    if nominal.status == "optimal" and not any(isinstance(v, list) for v in nominal.decisions_si.values()):
+        pool.append(("nominal optimum", dict(nominal.decisions_si)))
+    pool += [(name, dict(values)) for name, values in study.sweep.candidates]
+    optimal = [r for r in good if r["decisions"] and not any(isinstance(v, list) for v in r["decisions"].values())]
+    if optimal:
+        names = [d.name for d in study.decisions]
+        med = {n: float(np.median([r["decisions"][n] for r in optimal])) for n in names}
+        pool.append(("median of scenario optima", med))
+        order = sorted(optimal, key=lambda r: r["goal"])
+        picks = np.unique(np.linspace(0, len(order) - 1, min(MAX_POOL, len(order))).round().astype(int))
+        for k in picks:
+            pool.append((f"optimum of scenario {order[k]['idx']}", dict(order[k]["decisions"])))
+    target = study.sweep.share
+    executor = None
+    if (workers or 2) > 1:
+        from tubeyield.jobs.executor import LocalExecutor
+        executor = LocalExecutor(workers)
+    try:
+        procs = executor.pool if executor else None
+        results = _evaluate_points(study, [p for _, p in pool], scenario_values, procs)
+        if pool and pool[0][0] == "nominal optimum":
+            backed = _back_off(study, results[0], scenario_values, procs, target)
+            if backed is not None:
+                pool.append(backed[:2])
+                results.append(backed[2])
+    finally:
+        if executor:
+            executor.shutdown()
+    names = [d.name for d in study.decisions if not d.fixed]
+    table = []
+    for (label, point), res in zip(pool, results):
+        g = np.array([x[0] for x in res], dtype=float)
+        ok = np.array([x[1] for x in res], dtype=bool)
+        table.append({"label": label, "point": point, "values": [f"{_user(study, n, point[n]):.5g}" for n in names],
+                      "share": float(ok.mean()) if ok.size else 0.0,
+                      "mean": float(np.nanmean(g)) if np.isfinite(g).any() else None,
+                      "p05": float(np.nanpercentile(g, 5)) if np.isfinite(g).any() else None})
+    sense = 1 if study.goal.sense == "max" else -1
+    meeting = [t for t in table if t["share"] >= target - 1e-12 and t["mean"] is not None]
+    if meeting:
+        best = max(meeting, key=lambda t: sense * t["mean"])
+        text = (f"Recommended: {best['label']}, which meets every limit in {100 * best['share']:.1f} % of "
+                f"{len(scenario_values)} scenarios (target {100 * target:.0f} %) with mean {study.goal.metric.text} "
+                f"{best['mean']:.4g}.")
+    else:
+        best = max(table, key=lambda t: t["share"]) if table else None
+        text = (f"No candidate meets every limit in {100 * target:.0f} % of the scenarios; the most reliable is "
+                f"{best['label']} at {100 * best['share']:.1f} %." if best else "No candidates.")
+    table.sort(key=lambda t: (-t["share"], -sense * (t["mean"] or 0.0)))
+    return {"text": text, "decisions": names, "rows": table, "best": best["label"] if best else None,
+            "target": target, "scenarios": len(scenario_values)}
