@@ -178,7 +178,11 @@ def histogram_grid(columns: dict, title: str):
         fig, axes = plt.subplots(rows, cols, figsize=(3.3 * cols, 2.6 * rows), squeeze=False)
         for ax, (name, (values, unit)) in zip(axes.ravel(), columns.items()):
             v = np.asarray([x for x in values if x is not None and np.isfinite(x)], dtype=float)
-            if v.size:
+            if v.size and np.ptp(v) <= 1e-6 * max(1.0, np.abs(v).max()):
+                ax.text(0.5, 0.5, f"{v.size} scenarios\nall at {v.mean():.5g} {unit}".rstrip(), ha="center",
+                        va="center", transform=ax.transAxes, fontsize=9)
+                ax.set_xticks([])
+            elif v.size:
                 ax.hist(v, bins=min(30, max(5, v.size // 8)), color=PALETTE[0], edgecolor="white")
             ax.set_xlabel(_label(name, unit), fontsize=8)
             ax.set_ylabel(_label("scenarios", ""), fontsize=8)

@@ -57,6 +57,8 @@ DEFAULT_OPTIONS = {
     "bound_push": 1e-8,
     "bound_frac": 1e-8,
     "bound_mult_init_method": "mu-based",
+    # Ipopt relaxes bounds by 1e-8 internally; project the answer back so decisions stay inside the user's ranges.
+    "honor_original_bounds": "yes",
     "tol": 1e-10,
     "acceptable_tol": 1e-7,
     "max_iter": 1000,
@@ -261,8 +263,15 @@ def _write_nl(model) -> _Written:
     if len(objectives) != 1:
         raise SolverUnavailable(f"{NAME} needs exactly one active objective, the model has {len(objectives)}")
     stream = io.StringIO()
-    info = NLWriter().write(model, stream, symbolic_solver_labels=False, linear_presolve=False,
-                            skip_trivial_constraints=True, scale_model=False)
+    import gc
+    was = gc.isenabled()
+    gc.disable()                 # the writer allocates many objects; see tubeyield.reactor.paused_gc
+    try:
+        info = NLWriter().write(model, stream, symbolic_solver_labels=False, linear_presolve=False,
+                                skip_trivial_constraints=True, scale_model=False)
+    finally:
+        if was:
+            gc.enable()
     text = stream.getvalue()
     lbg, ubg, key_text = _constraint_bounds_and_key(text, len(info.variables), len(info.constraints))
     sense = 1 if objectives[0].sense == pyo.minimize else -1

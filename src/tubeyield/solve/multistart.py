@@ -83,10 +83,20 @@ def screen(study: Study, points: list[dict]) -> list[Candidate]:
     return out
 
 
-def starts(study: Study, n_starts: int, seed: int = 0, oversample: int = 8) -> list[Candidate]:
-    """The `n_starts` best of a screened design of max(16, oversample x n_starts, 4 per decision) points."""
+def starts(study: Study, n_starts: int, seed: int = 0, oversample: int = 8, rounds: int = 2) -> list[Candidate]:
+    """The `n_starts` best of a screened design of max(16, oversample x n_starts, 4 per decision) points.
+
+    When no screened point meets every limit (a narrow window), up to `rounds` more designs of twice the size are
+    screened first: simulations cost milliseconds, while starting from a point outside the limits costs a
+    minimum-violation solve of its own."""
     n_free = sum(1 for d in study.decisions if not d.fixed)
     n = max(16, oversample * n_starts, 4 * n_free)
     ranked = screen(study, design(study, n, seed))
+    for k in range(rounds):
+        if not study.goal.limits or (ranked and ranked[0].violation <= 0) or n_free == 0:
+            break
+        n *= 2
+        ranked = sorted(ranked + screen(study, design(study, n, seed + 1 + k)),
+                        key=lambda c: c.rank_key(study.goal.sense))
     usable = [c for c in ranked if c.simulation is not None]
     return usable[:n_starts]
