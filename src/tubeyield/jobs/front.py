@@ -93,9 +93,22 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
     xs, ys = spec.x_sense, spec.y_sense
     timing = {}
 
+    # One model for the y-end and the whole front: maximize y subject to x at a level (a pinned variable). At the
+    # y-end the level is set where it cannot bind; the x-end needs its own objective, hence its own model. Both ends
+    # rank the same screened simulations.
     t = time.perf_counter()
-    y_opt = optimize(_with_goal(study, spec.y, ys), solver=solver)
-    x_opt = optimize(_with_goal(study, spec.x, xs), solver=solver)
+    fstudy = _with_goal(study, spec.y, ys)
+    xstudy = _with_goal(study, spec.x, xs)
+    from tubeyield.solve import multistart
+    screened = multistart.screen(study, multistart.design(
+        study, max(16, 8 * study.numerics.starts, 4 * sum(not d.fixed for d in study.decisions))))
+    model = prepare(fstudy)
+    x_scale = 1.0 if spec.x.kind in ("conversion", "yield", "selectivity") else None
+    free_level = -1e6 if xs == "max" else 1e6
+    model.add_level(LEVEL, spec.x, ">=" if xs == "max" else "<=", free_level * (x_scale or 1.0), x_scale or 1.0)
+    y_opt = optimize(fstudy, solver=solver, model=model, screened=screened)
+    y_snapshot = model.snapshot() if y_opt.status == "optimal" else None
+    x_opt = optimize(xstudy, solver=solver, screened=screened)
     timing["ends"] = time.perf_counter() - t
     ends = {"y_optimum": y_opt.to_dict(), "x_optimum": x_opt.to_dict()}
     result = FrontResult(study.name, spec.x.text, spec.y.text, xs, ys, "done", [], ends, timing=timing)
@@ -115,24 +128,28 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
         result.knee = 0
         return result
 
-    # One model: maximize y subject to x at a level that is a pinned variable.
     t = time.perf_counter()
     elements = max(y_opt.check.elements, x_opt.check.elements)
-    fstudy = _with_goal(study, spec.y, ys)
-    model = prepare(fstudy, elements, scale_hint=y_opt.goal["value"])
-    x_scale = 1.0 if spec.x.kind in ("conversion", "yield", "selectivity") else max(abs(x_start), abs(x_end), 1e-300)
-    model.add_level(LEVEL, spec.x, ">=" if xs == "max" else "<=", x_start, x_scale)
+    if elements != model.elements or x_scale is None:
+        # the ends needed a finer mesh (or the x metric needs its own scale): a front model to match
+        x_scale = x_scale or max(abs(x_start), abs(x_end), 1e-300)
+        model = prepare(fstudy, elements, scale_hint=y_opt.goal["value"])
+        model.add_level(LEVEL, spec.x, ">=" if xs == "max" else "<=", x_start, x_scale)
+        _start_from(model, study, y_opt.decisions_si)
+        y_snapshot = None
+    else:
+        model.restore(y_snapshot)
     timing["build"] = time.perf_counter() - t
 
     levels = np.linspace(x_start, x_end, n)
     # Nudge the last level inside the attainable range: x_end is itself an optimum found to solver tolerance.
     levels[-1] = x_end - sign * 1e-9 * max(1.0, abs(x_end))
-    _start_from(model, study, y_opt.decisions_si)
     t = time.perf_counter()
     previous = None
     for i, level in enumerate(levels):
         model.set_level(LEVEL, float(level))
-        res = solver.solve(model.m, options=options, reuse_structure=i > 0, warmstart=previous is not None)
+        res = solver.solve(model.m, options=options, reuse_structure=True, warmstart=previous is not None or
+                           y_snapshot is not None)
         ok = res.solver.termination_condition in OK_CONDITIONS
         if not ok and previous is not None:
             # continuation failed: back to the last good point and a cold start

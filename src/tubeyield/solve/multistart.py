@@ -83,7 +83,20 @@ def screen(study: Study, points: list[dict]) -> list[Candidate]:
     return out
 
 
-def starts(study: Study, n_starts: int, seed: int = 0, oversample: int = 8, rounds: int = 2) -> list[Candidate]:
+def rerank(study: Study, screened: list[Candidate]) -> list[Candidate]:
+    """The same simulated points ranked for another goal or other limits (no new simulations)."""
+    out = []
+    for c in screened:
+        if c.simulation is None:
+            continue
+        out.append(Candidate(c.decisions, c.simulation, c.simulation.metric(study.goal.metric),
+                             violation(study, c.simulation)))
+    out.sort(key=lambda c: c.rank_key(study.goal.sense))
+    return out
+
+
+def starts(study: Study, n_starts: int, seed: int = 0, oversample: int = 8, rounds: int = 2,
+           screened: list[Candidate] | None = None) -> list[Candidate]:
     """The `n_starts` best of a screened design of max(16, oversample x n_starts, 4 per decision) points.
 
     When no screened point meets every limit (a narrow window), up to `rounds` more designs of twice the size are
@@ -91,7 +104,12 @@ def starts(study: Study, n_starts: int, seed: int = 0, oversample: int = 8, roun
     minimum-violation solve of its own."""
     n_free = sum(1 for d in study.decisions if not d.fixed)
     n = max(16, oversample * n_starts, 4 * n_free)
-    ranked = screen(study, design(study, n, seed))
+    if screened is not None:
+        ranked = rerank(study, screened)
+        if ranked and (ranked[0].violation <= 0 or not study.goal.limits):
+            return ranked[:n_starts]
+    else:
+        ranked = screen(study, design(study, n, seed))
     for k in range(rounds):
         if not study.goal.limits or (ranked and ranked[0].violation <= 0) or n_free == 0:
             break
