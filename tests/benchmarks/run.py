@@ -256,8 +256,9 @@ def case_sweep(n: int, rows: list, notes: list, tmp: Path):
 # -------------------------------------------------------------------------------------------------------- scaling
 
 def network_text(n_species: int, seed: int = 5) -> str:
-    """An invented network: n species of two masses, 2n reactions (isomerizations and dimerizations), rate
-    constants log-uniform over 12 decades, activation energies 40-120 kJ/mol; maximize a middle intermediate."""
+    """An invented network: n species of two masses, 2n reactions (isomerizations and dimerizations). The chain
+    L0 -> L1 -> L2 that makes the target L1 has moderate rate constants; the other reactions' constants are
+    log-uniform over 12 decades (1e-7 to 1e5, in 1/s or L/(mol s)); activation energies 40-120 kJ/mol."""
     import numpy as np
     rng = np.random.default_rng(seed)
     half = n_species // 2
@@ -273,12 +274,13 @@ def network_text(n_species: int, seed: int = 5) -> str:
         a, b = rng.choice(len(light), 2)
         h = rng.integers(len(heavy))
         reactions.append((f"{light[a]} + {light[b]} -> {heavy[h]}" if a != b else f"2 {light[a]} -> {heavy[h]}", 2))
-    logk = rng.uniform(-6, 6, len(reactions))   # 12 decades
+    logk = rng.uniform(-7, 5, len(reactions))   # 12 decades
+    logk[0], logk[1] = -1.0, -2.0                # the chain to and from the target: L0 -> L1 -> L2
     for j, ((eq, order), lk) in enumerate(zip(reactions, logk)):
         unit = "1/s" if order == 1 else "L/(mol*s)"
         lines += ["[[reaction]]", f'id = "r{j}"', f'equation = "{eq}"', f'k = "{10 ** lk:.4e} {unit}"',
                   'T_ref = "350 K"', f'Ea = "{rng.uniform(40, 120):.1f} kJ/mol"']
-    target = light[min(2, len(light) - 1)]
+    target = light[1]
     lines += ["[feed]", 'flow = "1 L/min"', f'conc = {{ {light[0]} = "1 mol/L" }}',
               "[reactor]", 'heat = "isothermal"', "elements = 40", "grading = 1000",
               "[operate]", 'tau = ["0.01 s", "1000 s"]', 'T = ["320 K", "380 K"]',

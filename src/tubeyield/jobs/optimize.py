@@ -26,14 +26,29 @@ SAME_OPTIMUM = 1e-6    # relative difference of goal values that counts as the s
 
 
 def goal_scale(study: Study, value: float | None) -> float:
+    """The goal's typical magnitude, so that Ipopt's objective is of order one: fractions (conversion, yield,
+    selectivity) are scaled only when small (a yield of 1e-6 would otherwise be lost below the tolerances), other
+    metrics by the best screened value."""
+    v = abs(value) if value is not None and value == value else 0.0
     if study.goal.metric.kind in ("conversion", "yield", "selectivity"):
-        return 1.0
-    return abs(value) if value and abs(value) > 0 else 1.0
+        return min(1.0, max(v, 1e-9)) if v > 0 else 1.0
+    return v if v > 0 else 1.0
 
 
-def prepare(study: Study, elements: int | None = None, scale_hint: float | None = None) -> ReactorModel:
-    """The model with the study's goal and limits."""
-    model = build(study, elements)
+def prepare(study: Study, elements: int | None = None, scale_hint: float | None = None,
+            start=None) -> ReactorModel:
+    """The model with the study's goal and limits. `start` (a Simulation) sets the species scales; without one, a
+    simulation at the middle of the decision ranges does (or unit scales if it fails)."""
+    from tubeyield.reactor import state_scales
+    if start is None:
+        try:
+            from tubeyield.reactor.simulate import simulate
+            from tubeyield.solve.multistart import SCREEN_RTOL
+            mid = {d.name: 0.5 * (d.low + d.high) for d in study.decisions}
+            start = simulate(study, mid, rtol=SCREEN_RTOL)
+        except Exception:  # a start that cannot be simulated: unit scales
+            start = None
+    model = build(study, elements, state_scales(start) if start is not None else None)
     model.set_goal(study.goal.metric, study.goal.sense, goal_scale(study, scale_hint))
     model.add_limits(study.goal.limits)
     return model
@@ -65,7 +80,8 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
     if reuse:
         model.set_parameters(study)
     else:
-        model = prepare(study, scale_hint=candidates[0].goal)
+        model = prepare(study, scale_hint=max((abs(c.goal) for c in candidates if c.goal == c.goal), default=None),
+                        start=candidates[0].simulation)
     timing["build"] = time.perf_counter() - t
 
     closest = None
@@ -176,7 +192,7 @@ def _verify_and_refine(study, model, solver, options, timing, tee):
         decisions = model.decision_values()
         T_fun = model.temperature_function()
         t = time.perf_counter()
-        finer = prepare(study, model.elements * 2, scale_hint=model.goal_scale)
+        finer = prepare(study, model.elements * 2, scale_hint=model.goal_scale, start=sim)
         timing["build"] += time.perf_counter() - t
         if "T" in finer.decisions and finer.decisions["T"].profile:
             decisions["T"] = [T_fun(z) for z in finer.inner]
@@ -217,7 +233,9 @@ class _Closest:
 def _closest_point(study, elements, solver, options, candidates, timing) -> "_Closest | None":
     """Minimize the total violation of the limits (each scaled like its constraint) over the decision ranges,
     from each of the least-violating screened points (the problem is nonconvex too); the smallest wins."""
-    elastic = build(study, elements)
+    from tubeyield.reactor import state_scales
+    least = min(candidates, key=lambda c: c.violation)
+    elastic = build(study, elements, state_scales(least.simulation) if least.simulation is not None else None)
     slacks = elastic.add_elastic_limits(study.goal.limits)
     elastic.m.goal = pyo.Objective(expr=sum(slacks), sense=pyo.minimize)
     elastic.goal_metric, elastic.goal_sense, elastic.goal_scale = study.goal.metric, "min", 1.0

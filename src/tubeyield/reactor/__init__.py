@@ -22,14 +22,27 @@ def paused_gc():
             gc.enable()
 
 
-def build(study: Study, elements: int | None = None) -> ReactorModel:
-    """The collocation (plug) or algebraic (stirred) model of `study`, with decisions at their mid-range values."""
+def state_scales(sim, floor_share: float = 1e-9) -> dict:
+    """Typical size of each species' scaled flow in a simulation: its largest value along the reactor, floored at
+    `floor_share` of the total inlet (a species that never forms keeps a scale that its first trace can reach)."""
+    import numpy as np
+    total = sum(abs(v) for v in sim.u_in.values()) or 1.0
+    floor = floor_share * total
+    if sim.tanks:
+        return {s: max(max(abs(t[s]) for t in sim.tanks), abs(sim.u_in[s]), floor) for s in sim.study.symbols}
+    states = sim.states_at(np.linspace(0.0, 1.0, 201))
+    return {s: max(float(np.max(np.abs(states[s]))), abs(sim.u_in[s]), floor) for s in sim.study.symbols}
+
+
+def build(study: Study, elements: int | None = None, state_scale: dict | None = None) -> ReactorModel:
+    """The collocation (plug) or algebraic (stirred) model of `study`, with decisions at their mid-range values.
+    `state_scale` divides each species' scaled flow (see `state_scales`); default 1."""
     with paused_gc():
         if study.reactor.kind == "plug":
             from tubeyield.reactor.plug import PlugModel
-            return PlugModel(study, elements)
+            return PlugModel(study, elements, state_scale)
         from tubeyield.reactor.stirred import StirredModel
-        return StirredModel(study, elements)
+        return StirredModel(study, elements, state_scale)
 
 
-__all__ = ["ReactorModel", "build", "paused_gc"]
+__all__ = ["ReactorModel", "build", "paused_gc", "state_scales"]

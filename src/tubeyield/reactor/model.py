@@ -86,9 +86,13 @@ class ReactorModel:
 
     kind = "base"
 
-    def __init__(self, study: Study, elements: int | None = None):
+    def __init__(self, study: Study, elements: int | None = None, state_scale: dict | None = None):
         self.study = study
         self.elements = elements or study.reactor.elements
+        # Each species' scaled flow is divided by its own typical size (from a simulation at the start), so that
+        # fast intermediates at quasi-steady levels of 1e-8 are order one to Ipopt, like everything else.
+        self.state_scale = {s: 1.0 for s in study.symbols}
+        self.state_scale.update(state_scale or {})
         m = self.m = pyo.ConcreteModel(name=study.name)
         m.dual = pyo.Suffix(direction=pyo.Suffix.IMPORT)
         m.rc = pyo.Suffix(direction=pyo.Suffix.IMPORT)

@@ -50,8 +50,9 @@ class PlugModel(ReactorModel):
         m.z = dae.ContinuousSet(bounds=(0.0, 1.0), initialize=self.edges)
         m.S = pyo.Set(initialize=symbols, ordered=True)
         m.J = pyo.Set(initialize=[r.id for r in st.reactions], ordered=True)
+        sc = self.state_scale
         m.u = pyo.Var(m.S, m.z, bounds=(0.0, None),
-                      initialize=lambda m, s, z: pyo.value(self.u0[s]))
+                      initialize=lambda m, s, z: pyo.value(self.u0[s]) / sc[s])
         m.du = dae.DerivativeVar(m.u, wrt=m.z)
         energy = heat in ("adiabatic", "cooled")
         if energy:
@@ -78,7 +79,7 @@ class PlugModel(ReactorModel):
         reactions = self.kin.reactions
 
         def conc_at(z):
-            return concentrations(st, {s: m.u[s, z] for s in symbols}, self.T_scale * theta(z), c_s, self.par)
+            return concentrations(st, {s: sc[s] * m.u[s, z] for s in symbols}, self.T_scale * theta(z), c_s, self.par)
 
         def rate_rule(m, j, z):
             T = self.T_scale * theta(z)
@@ -90,10 +91,10 @@ class PlugModel(ReactorModel):
         def ode(m, s, z):
             production = sum(stoich[self._rx_index[j]].get(s, 0.0) * m.rate[j, z] for j in m.J
                              if stoich[self._rx_index[j]].get(s, 0.0))
-            return m.du[s, z] == tau * production / c_s
+            return m.du[s, z] == tau * production / (c_s * sc[s])
 
         m.mole_balance = pyo.Constraint(m.S, inner, rule=ode)
-        m.inlet = pyo.Constraint(m.S, rule=lambda m, s: m.u[s, 0.0] == self.u0[s])
+        m.inlet = pyo.Constraint(m.S, rule=lambda m, s: m.u[s, 0.0] == self.u0[s] / sc[s])
 
         if energy:
             cp_scale = max(float(pyo.value(self.kin.flow_heat_capacity(self.u0))), 1e-12)
@@ -103,13 +104,13 @@ class PlugModel(ReactorModel):
                 T = self.T_scale * m.theta[z]
                 q = sum(-reactions[i].heat_of_reaction(T, self.kin.dCp[i]) * m.rate[j, z] for j, i in self._rx_index.items())
                 q = q + wall_term(st, self.par, T, self.T_cool_expr())
-                heat_capacity = self.kin.flow_heat_capacity({s: m.u[s, z] for s in symbols})
+                heat_capacity = self.kin.flow_heat_capacity({s: sc[s] * m.u[s, z] for s in symbols})
                 return heat_capacity * m.dtheta[z] / cp_scale == tau * q / (c_s * self.T_scale * cp_scale)
 
             m.energy_balance = pyo.Constraint(inner, rule=energy_rule)
             m.inlet_T = pyo.Constraint(expr=m.theta[0.0] == m.T_in)
 
-        self.u_out = {s: m.u[s, 1.0] for s in symbols}
+        self.u_out = {s: sc[s] * m.u[s, 1.0] for s in symbols}
         self.T_out = theta(1.0)
         if heat == "isothermal":
             self.T_points = [m.T]
@@ -164,11 +165,11 @@ class PlugModel(ReactorModel):
         states = sim.states_at(z)
         for s in self.study.symbols:
             for zi, v in zip(self.points, states[s]):
-                m.u[s, zi].set_value(max(float(v), 0.0), skip_validation=True)
+                m.u[s, zi].set_value(max(float(v), 0.0) / self.state_scale[s], skip_validation=True)
         derivs = sim.derivatives_at(z)
         for s in self.study.symbols:
             for zi, v in zip(self.points, derivs[s]):
-                m.du[s, zi].set_value(float(v), skip_validation=True)
+                m.du[s, zi].set_value(float(v) / self.state_scale[s], skip_validation=True)
         if self.study.reactor.heat in ("adiabatic", "cooled"):
             for zi, v, dv in zip(self.points, states["T"], derivs["T"]):
                 m.theta[zi].set_value(float(v) / self.T_scale, skip_validation=True)
@@ -184,7 +185,7 @@ class PlugModel(ReactorModel):
         rows = []
         for z in self.points:
             T = float(pyo.value(self.theta_at(z))) * self.T_scale
-            u = {s: float(pyo.value(self.m.u[s, z])) for s in st.symbols}
+            u = {s: float(pyo.value(self.m.u[s, z])) * self.state_scale[s] for s in st.symbols}
             conc = concentrations(st, u, T, float(pyo.value(self.c_s)), {k: pyo.value(v) for k, v in self.par.items()})
             row = {"z": z, "residence_time_s": z * tau, "volume_m3": z * tau * st.feed.flow, "T_K": T}
             row.update({f"C_{s}_mol_per_m3": conc[s] for s in st.symbols})

@@ -27,8 +27,9 @@ class StirredModel(ReactorModel):
         m.K = pyo.RangeSet(1, n)
         m.S = pyo.Set(initialize=symbols, ordered=True)
         m.J = pyo.Set(initialize=[r.id for r in st.reactions], ordered=True)
+        sc = self.state_scale
         m.u = pyo.Var(m.S, m.K, bounds=(0.0, None),
-                      initialize=lambda m, s, k: pyo.value(self.u0[s]))
+                      initialize=lambda m, s, k: pyo.value(self.u0[s]) / sc[s])
         energy = rx.heat in ("adiabatic", "cooled")
         if energy:
             m.theta = pyo.Var(m.K, bounds=T_STATE_BOUNDS, initialize=pyo.value(m.T_in))
@@ -42,18 +43,18 @@ class StirredModel(ReactorModel):
             return m.theta[k] if energy else m.T
 
         def u_before(s, k):
-            return self.u0[s] if k == 1 else m.u[s, k - 1]
+            return self.u0[s] if k == 1 else sc[s] * m.u[s, k - 1]
 
         def rate_rule(m, j, k):
             T = self.T_scale * theta(k)
-            conc = concentrations(st, {s: m.u[s, k] for s in symbols}, T, c_s, self.par)
+            conc = concentrations(st, {s: sc[s] * m.u[s, k] for s in symbols}, T, c_s, self.par)
             return reactions[index[j]].rate_expression(conc, T, math_for(T))
 
         m.rate = pyo.Expression(m.J, m.K, rule=rate_rule)
 
         def balance(m, s, k):
             production = sum(stoich[index[j]].get(s, 0.0) * m.rate[j, k] for j in m.J if stoich[index[j]].get(s, 0.0))
-            return m.u[s, k] - u_before(s, k) == tau_k * production / c_s
+            return (sc[s] * m.u[s, k] - u_before(s, k)) / sc[s] == tau_k * production / (c_s * sc[s])
 
         m.mole_balance = pyo.Constraint(m.S, m.K, rule=balance)
 
@@ -70,7 +71,7 @@ class StirredModel(ReactorModel):
 
             m.energy_balance = pyo.Constraint(m.K, rule=energy_rule)
 
-        self.u_out = {s: m.u[s, n] for s in symbols}
+        self.u_out = {s: sc[s] * m.u[s, n] for s in symbols}
         self.T_out = theta(n)
         self.T_points = [m.theta[k] for k in m.K] if energy else [m.T]
         self._theta = theta
@@ -81,7 +82,7 @@ class StirredModel(ReactorModel):
     def tank_states(self) -> list[dict]:
         out = []
         for k in range(1, self.n_tanks + 1):
-            tank = {s: float(pyo.value(self.m.u[s, k])) for s in self.study.symbols}
+            tank = {s: float(pyo.value(self.m.u[s, k])) * self.state_scale[s] for s in self.study.symbols}
             tank["T"] = float(pyo.value(self._theta(k))) * self.T_scale
             out.append(tank)
         return out
@@ -90,7 +91,7 @@ class StirredModel(ReactorModel):
         m = self.m
         for k in range(1, self.n_tanks + 1):
             for s in self.study.symbols:
-                m.u[s, k].set_value(max(float(sim.tanks[k - 1][s]), 0.0), skip_validation=True)
+                m.u[s, k].set_value(max(float(sim.tanks[k - 1][s]), 0.0) / self.state_scale[s], skip_validation=True)
             if self.study.reactor.heat in ("adiabatic", "cooled"):
                 m.theta[k].set_value(sim.tanks[k - 1]["T"] / self.T_scale, skip_validation=True)
 
@@ -102,7 +103,7 @@ class StirredModel(ReactorModel):
         rows = []
         for k in range(1, self.n_tanks + 1):
             T = float(pyo.value(self._theta(k))) * self.T_scale
-            u = {s: float(pyo.value(self.m.u[s, k])) for s in st.symbols}
+            u = {s: float(pyo.value(self.m.u[s, k])) * self.state_scale[s] for s in st.symbols}
             conc = concentrations(st, u, T, float(pyo.value(self.c_s)), par)
             row = {"tank": k, "residence_time_s": k * tau / self.n_tanks,
                    "volume_m3": k * tau * st.feed.flow / self.n_tanks, "T_K": T}
