@@ -176,3 +176,22 @@ def test_cli_pipeline_writes_a_complete_report(tmp_path):
 def test_report_of_a_missing_directory_is_a_user_error(tmp_path):
     r = _cli("report", str(tmp_path / "nothing"))
     assert r.returncode == 2 and "error:" in r.stderr and "Traceback" not in r.stderr
+
+
+def test_front_points_equal_cold_optimizations_at_their_level():
+    # Continuation must not stop short: a warm-started point equals a cold multistart optimization of y with
+    # x >= level as an ordinary limit. This configuration (T up to 400 K, 21 levels) once stopped 3e-6 short at
+    # level 1, when Ipopt's unscaled tolerances were at their loose defaults.
+    from tubeyield.study.metric import Limit
+    text = (SCENARIOS / "oxidation.toml").read_text().split("[window]")[0].replace('T = ["310 K", "420 K"]',
+                                                                                  'T = ["310 K", "400 K"]')
+    net = (SCENARIOS / "oxidation-network.toml").read_text()
+    study = study_from_toml(text.replace('include = "oxidation-network.toml"', "") + net)
+    fr = front(study, points=21)
+    spec = study.front
+    for index in (1, 10):
+        p = fr.points[index]
+        limits = study.goal.limits + (Limit("front level", spec.x, ">=", p["level"], ""),)
+        cold = optimize(dataclasses.replace(study, goal=dataclasses.replace(study.goal, metric=spec.y,
+                                                                            limits=limits)))
+        assert p["y"] == pytest.approx(cold.goal["value"], rel=1e-8), index

@@ -71,7 +71,7 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
     timing["screen"] = time.perf_counter() - t
     if not candidates:
         return _failed(study, "the reference simulation failed at every starting point", timing)
-    uniform = _uniform_temperature_start(study, solver, seed)
+    uniform = _uniform_temperature_start(study, solver, seed, starts)
     if uniform is not None:
         candidates = [uniform] + candidates[:len(candidates) - 1]
 
@@ -139,7 +139,7 @@ def _solve(solver, model, timing: dict, **kw):
     return res
 
 
-def _uniform_temperature_start(study: Study, solver, seed: int):
+def _uniform_temperature_start(study: Study, solver, seed: int, starts: int | None = None):
     """For zones and free profiles: the optimum at one uniform temperature, as the first start.
 
     Temperature-profile problems have many local optima (measured: four zones on the demo, 8 random starts ended at
@@ -160,7 +160,7 @@ def _uniform_temperature_start(study: Study, solver, seed: int):
     decisions = tuple(d for d in study.decisions if d not in temps) + (Decision("T", T.low, T.high, T.unit, "K"),)
     uniform = dataclasses.replace(study, decisions=decisions,
                                   reactor=dataclasses.replace(study.reactor, heat="isothermal", zones=1))
-    res = optimize(uniform, starts=max(1, study.numerics.starts // 2), seed=seed, solver=solver)
+    res = optimize(uniform, starts=max(1, (starts or study.numerics.starts) // 2), seed=seed, solver=solver)
     if res.status != "optimal":
         return None
     values = {k: v for k, v in res.decisions_si.items() if k != "T"}
