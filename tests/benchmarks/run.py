@@ -283,6 +283,7 @@ def network_text(n_species: int, seed: int = 5) -> str:
     target = light[1]
     lines += ["[feed]", 'flow = "1 L/min"', f'conc = {{ {light[0]} = "1 mol/L" }}',
               "[reactor]", 'heat = "isothermal"', "elements = 40", "grading = 1000",
+              "[numerics]", "max_elements = 160",
               "[operate]", 'tau = ["0.01 s", "1000 s"]', 'T = ["320 K", "380 K"]',
               "[goal]", f'maximize = "yield:{target}"', f'key = "{light[0]}"']
     return "\n".join(lines) + "\n"
@@ -362,12 +363,14 @@ def write_report(rows, notes, out: Path, started: float, quick: bool):
     lines += ["", "tubeyield with its default 4 starting points: " + ", ".join(
         f"case {k} {fmt(by[k]['tubeyield_4starts_s'])} s" for k in "abc" if k in by) + ".", "",
         "Where tubeyield's time goes (single start, seconds):", "",
-        "| case | screen | model build | NL write | solver build | Ipopt | check | total |", "| --- | --- | --- | --- | --- | --- | --- | --- |"]
+        "| case | screen | uniform-T start | model build | NL write | solver build | Ipopt | check | total |",
+        "| --- | --- | --- | --- | --- | --- | --- | --- | --- |"]
     for k in "abc":
         if k in by:
             s = by[k]["stages"]
-            lines.append(f"| {k} | {fmt(s.get('screen'))} | {fmt(s.get('build'))} | {fmt(s.get('nl_write'))} | "
-                         f"{fmt(s.get('solver_build'))} | {fmt(s.get('ipopt'))} | {fmt(s.get('check'))} | {fmt(s.get('total'))} |")
+            lines.append(f"| {k} | {fmt(s.get('screen'))} | {fmt(s.get('uniform_start'))} | {fmt(s.get('build'))} | "
+                         f"{fmt(s.get('nl_write'))} | {fmt(s.get('solver_build'))} | {fmt(s.get('ipopt'))} | "
+                         f"{fmt(s.get('check'))} | {fmt(s.get('total'))} |")
     if "d" in by:
         r = by["d"]
         lines += ["", "## Front", "",
@@ -401,7 +404,8 @@ def write_report(rows, notes, out: Path, started: float, quick: bool):
                          f"{fmt(e['peak_rss_mb'])} | {fmt(st['ipopt'])} | "
                          f"{fmt(st['build'] + st['nl_write'] + st['solver_build'])} |")
         lines += ["", "Invented networks (two species masses, 2n reactions, rate constants over 12 decades, graded "
-                  "mesh, automatic refinement):", "",
+                  "mesh, automatic refinement capped at 160 elements for the benchmark's run time; 'check' is the "
+                  "largest outlet-flow difference reached, against the tolerance 1e-6):", "",
                   "| species | reactions | time [s] | status | final elements | check | peak memory [MB] |",
                   "| --- | --- | --- | --- | --- | --- | --- |"]
         for e in sc["network"]:
@@ -410,7 +414,8 @@ def write_report(rows, notes, out: Path, started: float, quick: bool):
                 continue
             lines.append(f"| {e['species']} | {e['reactions']} | {fmt(e['seconds'])} | {e['status']} | "
                          f"{e['elements']} | {fmt(e['check'])} | {fmt(e['peak_rss_mb'])} |")
-    lines += ["", "## Targets", ""] + _targets(by) + ["", "## Notes", ""] + [f"- {n}" for n in notes]
+    lines += ["", "## Targets", ""] + _targets(by) + ["", "## Where targets are missed, and why", ""] + \
+        _explain(by) + ["", "## Notes", ""] + [f"- {n}" for n in notes]
     (out / "index.md").write_text("\n".join(lines) + "\n")
     with open(out / "results.csv", "w", newline="") as fh:
         w = csv.writer(fh)
@@ -463,6 +468,47 @@ def _targets(by) -> list:
                  f"time x{els[-1]['seconds'] / els[0]['seconds']:.1f} for elements x{els[-1]['elements'] / els[0]['elements']:.0f}",
                  growth <= 1.0 + 0.25, f"{growth:.2f}x of linear")
     return out
+
+
+def _explain(by) -> list:
+    """Reasons for missed targets, from this run's stage times."""
+    out = []
+    fmt = lambda v: "-" if v is None else f"{v:.3g}"
+    a = by.get("a")
+    if a and (a.get("ratio_scipy") or 99) < 10:
+        st = a["stages"]
+        fixed = st.get("build", 0) + st.get("nl_write", 0) + st.get("solver_build", 0)
+        out.append(f"- Case a against scipy ({fmt(a.get('ratio_scipy'))}x): the network has 7 species and is not "
+                   f"stiff, so single shooting needs only {a.get('scipy_simulations')} LSODA simulations of a few "
+                   f"milliseconds ({fmt(a['scipy_s'])} s in all). tubeyield's fixed costs alone, Pyomo build + NL "
+                   f"write + solver build = {fmt(fixed)} s, are of that size; Ipopt takes {fmt(st.get('ipopt'))} s. "
+                   "The 10x target holds where single shooting is at its worst: many decisions (case c) or stiff "
+                   "networks, not for three decisions on a small non-stiff network.")
+    for k in "bc":
+        r = by.get(k)
+        if r and (r.get("ratio_casadi") or 0) > 1.5:
+            st = r["stages"]
+            out.append(f"- Case {k} against casadi ({fmt(r['ratio_casadi'])}x): {fmt(st.get('uniform_start'))} s of "
+                       f"tubeyield's {fmt(r['tubeyield_s'])} s is the uniform-temperature optimization it runs first "
+                       "as a start: temperature-profile problems have several local optima (four zones on this demo: "
+                       "0.5033, 0.5159 and 0.5268 from random starts), and the baseline is given the good start for "
+                       "free. Without it tubeyield would cost about "
+                       f"{fmt(r['tubeyield_s'] - (st.get('uniform_start') or 0))} s, the NL route (Pyomo build + NL "
+                       f"write + casadi import) adding about {fmt(st.get('build', 0) + st.get('nl_write', 0))} s to the "
+                       "hand-written model.")
+    b = by.get("b")
+    if b and (b.get("ratio_scipy") or 99) < 10:
+        out.append(f"- Case b against scipy ({fmt(b.get('ratio_scipy'))}x): six decisions are still few for single "
+                   "shooting on this small network; the gap opens with the free profile (case c, 120 decisions).")
+    d = by.get("d")
+    if d and d["front_over_single"] >= 3:
+        st = d["stages"]
+        out.append(f"- Front ({fmt(d['front_over_single'])}x one single-start optimization): the two single-metric "
+                   f"ends, each a multistart optimization with its own check, take {fmt(st.get('ends'))} s; the 21 "
+                   f"warm-started levels take {fmt(st.get('points'))} s (each also re-simulated). Against tubeyield's "
+                   f"default 4-start optimization of case a ({fmt(by['a']['tubeyield_4starts_s'])} s) the front is "
+                   f"{fmt(d['tubeyield_s'] / by['a']['tubeyield_4starts_s'])}x.")
+    return out or ["- none"]
 
 
 def main():

@@ -71,7 +71,10 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
     timing["screen"] = time.perf_counter() - t
     if not candidates:
         return _failed(study, "the reference simulation failed at every starting point", timing)
+    t = time.perf_counter()
     uniform = _uniform_temperature_start(study, solver, seed, starts)
+    if uniform is not None:
+        timing["uniform_start"] = time.perf_counter() - t
     if uniform is not None:
         candidates = [uniform] + candidates[:len(candidates) - 1]
 
