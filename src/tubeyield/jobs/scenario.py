@@ -1,16 +1,6 @@
-"""Sweep variations: study paths such as "reaction.over.Ea" parsed (never evaluated) and applied to a Study.
+"""Sweep scenarios: variations (parsed in study/variation.py) applied to a Study, and the scenario list.
 
-Paths:
-  reaction.<id>.k        rate constant at T_ref (units of the reaction's order)
-  reaction.<id>.k_factor multiplier on k (catalyst activity); reaction.*.k_factor scales every reaction
-  reaction.<id>.Ea       activation energy (k at T_ref kept)
-  reaction.<id>.dH       heat of reaction
-  feed.conc.<species>    inlet concentration (liquid)
-  feed.flow              volumetric feed flow
-  feed.T                 feed temperature
-  operate.<decision>     fixes a decision (tau, T, T.<zone>, T_in, T_cool, ratio.<species>)
-  species.<s>.Cp         molar heat capacity
-  reactor.U              wall heat-transfer coefficient
+(The paths are listed in study/variation.py.)
 """
 
 from __future__ import annotations
@@ -24,95 +14,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from tubeyield.errors import StudyError
 from tubeyield.study.schema import Study, Variation
-from tubeyield.study.units import rate_constant_to_si, to_si, unit_text
-
-DISTRIBUTIONS = {"normal": 2, "lognormal": 2, "uniform": 2, "triangular": 3}
-
-
-def _path_kind(path: str, key: str, study: Study):
-    """(quantity kind, concentration power for rate constants) of a path; a StudyError if the path is unknown."""
-    parts = path.split(".")
-    head = parts[0]
-    if head == "reaction" and len(parts) == 3:
-        rid, attr = parts[1], parts[2]
-        if rid != "*" and rid not in {r.id for r in study.reactions}:
-            raise StudyError(key, f"a reaction id after 'reaction.', got {rid!r} "
-                                  f"(reactions: {', '.join(r.id for r in study.reactions)})")
-        if rid == "*" and attr != "k_factor":
-            raise StudyError(key, "'reaction.*' only with k_factor (a common multiplier on every rate constant)")
-        if attr == "k":
-            order = sum(n for _, n in study.reaction(rid).orders)
-            return "rate", 1.0 - order
-        kinds = {"k_factor": "dimensionless", "Ea": "molar_energy", "dH": "molar_energy"}
-        if attr in kinds:
-            return kinds[attr], None
-        raise StudyError(key, f"one of k, k_factor, Ea, dH after 'reaction.{rid}.', got {attr!r}")
-    if head == "feed" and len(parts) == 3 and parts[1] == "conc":
-        if study.feed.phase != "liquid":
-            raise StudyError(key, "feed.conc.<species> only for a liquid feed")
-        if parts[2] not in study.symbols:
-            raise StudyError(key, f"a species after 'feed.conc.', got {parts[2]!r}")
-        return "concentration", None
-    if head == "feed" and len(parts) == 2 and parts[1] in ("flow", "T"):
-        return ("flow" if parts[1] == "flow" else "temperature"), None
-    if head == "operate" and len(parts) >= 2:
-        name = ".".join(parts[1:])
-        names = [d.name for d in study.decisions]
-        if name not in names:
-            raise StudyError(key, f"a decision after 'operate.', one of {', '.join(names)}; got {name!r}")
-        d = study.decision(name)
-        return {"s": "time", "K": "temperature", "": "dimensionless"}[d.si_unit], None
-    if head == "species" and len(parts) == 3 and parts[2] == "Cp":
-        if parts[1] not in study.symbols:
-            raise StudyError(key, f"a species after 'species.', got {parts[1]!r}")
-        return "molar_heat_capacity", None
-    if path == "reactor.U":
-        return "heat_transfer", None
-    raise StudyError(key, "a study path such as reaction.<id>.Ea, reaction.<id>.k, reaction.*.k_factor, "
-                          f"feed.conc.<species>, feed.flow, feed.T, operate.<decision>, species.<s>.Cp or reactor.U; got {path!r}")
-
-
-def _value(v, kind, power, key):
-    if kind == "rate":
-        return rate_constant_to_si(v, power, key)
-    return to_si(v, kind, key)
-
-
-def parse_variation(path: str, body, key: str, study: Study) -> Variation:
-    kind, power = _path_kind(path, key, study)
-    if not isinstance(body, dict) or len(body) != 1:
-        raise StudyError(key, "one of { values = [...] } or a distribution { normal = [mean, sd] }, "
-                              "{ lognormal = [median, sigma_ln] }, { uniform = [low, high] }, "
-                              "{ triangular = [low, mode, high] }")
-    (form, args), = body.items()
-    if not isinstance(args, list):
-        raise StudyError(f"{key}.{form}", f"a list, got {args!r}")
-    if form == "values":
-        if not args:
-            raise StudyError(f"{key}.values", "at least one value")
-        values = tuple(_value(v, kind, power, f"{key}.values[{i}]") for i, v in enumerate(args))
-        return Variation(path, values=values, unit=unit_text(args[0]))
-    if form not in DISTRIBUTIONS:
-        raise StudyError(f"{key}.{form}", f"'values' or a distribution ({', '.join(DISTRIBUTIONS)}), got {form!r}")
-    if len(args) != DISTRIBUTIONS[form]:
-        raise StudyError(f"{key}.{form}", f"{DISTRIBUTIONS[form]} parameters, got {len(args)}")
-    if form == "lognormal":
-        median = _value(args[0], kind, power, f"{key}.{form}[0]")
-        sigma = to_si(args[1], "dimensionless", f"{key}.{form}[1]")
-        if median <= 0 or sigma <= 0:
-            raise StudyError(f"{key}.{form}", "a positive median and a positive sigma of ln")
-        params = (median, sigma)
-    else:
-        params = tuple(_value(v, kind, power, f"{key}.{form}[{i}]") for i, v in enumerate(args))
-        if form == "normal" and params[1] <= 0:
-            raise StudyError(f"{key}.{form}[1]", "a positive standard deviation")
-        if form == "uniform" and params[0] >= params[1]:
-            raise StudyError(f"{key}.{form}", f"low < high, got {args!r}")
-        if form == "triangular" and not params[0] <= params[1] <= params[2] or form == "triangular" and params[0] == params[2]:
-            raise StudyError(f"{key}.{form}", f"low <= mode <= high with low < high, got {args!r}")
-    return Variation(path, distribution=form, parameters=params, unit=unit_text(args[0]))
 
 
 def apply_values(study: Study, values: dict[str, float]) -> Study:

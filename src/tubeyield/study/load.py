@@ -23,7 +23,6 @@ LAWS = ("power", "reversible", "adsorption")
 PHASES = ("liquid", "gas")
 KINDS = ("plug", "stirred", "stirred-series")
 HEAT = ("isothermal", "zones", "free", "adiabatic", "cooled")
-DISTRIBUTIONS = {"normal": 2, "lognormal": 2, "uniform": 2, "triangular": 3}
 RUNS = ("optimize", "front", "evaluate")
 
 
@@ -670,7 +669,7 @@ def _read_numerics(t: Table) -> Numerics:
 def _read_sweep(t: Table | None, study: Study) -> SweepSpec | None:
     if t is None:
         return None
-    from tubeyield.jobs.scenario import parse_variation
+    from tubeyield.study.variation import parse_variation
     vary_t = t.table("vary", what="a table mapping study paths to values or distributions")
     vary = tuple(parse_variation(path, body, f"{vary_t.key(path)}", study) for path, body in vary_t.data.items())
     vary_t.seen.update(vary_t.data)
