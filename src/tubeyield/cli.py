@@ -86,6 +86,20 @@ def main(argv: list[str] | None = None) -> int:
         return 130
 
 
+def _load(path: str, table: str | None = None, what: str = ""):
+    """The study at `path`; with `table`, one that has that table (a StudyError naming it otherwise)."""
+    from tubeyield.study import load_study
+    study = load_study(path)
+    if table is not None and getattr(study, table) is None:
+        raise StudyError(table, f"a [{table}] table with {what}", file=path)
+    return study
+
+
+def _at_least(value, flag: str, minimum: int, what: str) -> None:
+    if value is not None and value < minimum:
+        raise StudyError(flag, f"{what} (at least {minimum}), got {value}")
+
+
 def _print_json(obj) -> None:
     json.dump(obj, sys.stdout, indent=2, allow_nan=False, default=str)
     sys.stdout.write("\n")
@@ -144,11 +158,9 @@ def _optimize(args) -> int:
     from tubeyield.jobs.optimize import optimize
     from tubeyield.report.files import save_result
     from tubeyield.report.text import optimum_summary
-    from tubeyield.study import load_study
 
-    study = load_study(args.study)
-    if args.starts is not None and args.starts < 1:
-        raise StudyError("--starts", f"a positive number of starts, got {args.starts}")
+    study = _load(args.study)
+    _at_least(args.starts, "--starts", 1, "a number of starting points")
     result = optimize(study, starts=args.starts, tee=args.tee)
     if args.save:
         save_result(args.save, "optimum", result, study)
@@ -165,9 +177,8 @@ def _simulate(args) -> int:
     from tubeyield.jobs.evaluate import evaluate, parse_settings
     from tubeyield.report.files import write_atomic
     from tubeyield.report.text import evaluation_summary
-    from tubeyield.study import load_study
 
-    study = load_study(args.study)
+    study = _load(args.study)
     values, notes = parse_settings(study, args.settings)
     result = evaluate(study, values)
     if args.profile:
@@ -189,13 +200,9 @@ def _front(args) -> int:
 
     from tubeyield.jobs.front import front
     from tubeyield.report.files import save_inputs, write_atomic, write_json
-    from tubeyield.study import load_study
 
-    study = load_study(args.study)
-    if study.front is None:
-        raise StudyError(f"{args.study}: front", "a [front] table with x, y and points")
-    if args.points is not None and args.points < 3:
-        raise StudyError("--points", f"at least 3 levels, got {args.points}")
+    study = _load(args.study, "front", "x, y and points")
+    _at_least(args.points, "--points", 3, "a number of levels")
     result = front(study, points=args.points)
     if args.save:
         write_json(Path(args.save) / "front.json", result.to_dict())
@@ -218,11 +225,8 @@ def _window(args) -> int:
     from tubeyield.jobs.optimize import optimize
     from tubeyield.jobs.window import window
     from tubeyield.report.files import save_inputs, write_json
-    from tubeyield.study import load_study
 
-    study = load_study(args.study)
-    if study.window is None:
-        raise StudyError(f"{args.study}: window", "a [window] table with x, y and points")
+    study = _load(args.study, "window", "x, y and points")
     if args.at:
         try:
             saved = _json.loads(Path(args.at).read_text(encoding="utf-8"))
@@ -241,8 +245,7 @@ def _window(args) -> int:
         from tubeyield.study.units import convert
         optimum = {"x": convert(base[dx.name], dx.si_unit, dx.unit) if dx.unit else base[dx.name],
                    "y": convert(base[dy.name], dy.si_unit, dy.unit) if dy.unit else base[dy.name]}
-    if args.workers is not None and args.workers < 1:
-        raise StudyError("--workers", f"a positive number of processes, got {args.workers}")
+    _at_least(args.workers, "--workers", 1, "a number of processes")
     result = window(study, base, workers=args.workers, optimum=optimum)
     if args.save:
         write_json(Path(args.save) / "window.json", result.to_dict())
@@ -257,13 +260,9 @@ def _window(args) -> int:
 
 def _sweep(args) -> int:
     from tubeyield.jobs.sweep import sweep
-    from tubeyield.study import load_study
 
-    study = load_study(args.study)
-    if study.sweep is None:
-        raise StudyError(f"{args.study}: sweep", "a [sweep] table with 'vary'")
-    if args.workers is not None and args.workers < 1:
-        raise StudyError("--workers", f"a positive number of processes, got {args.workers}")
+    study = _load(args.study, "sweep", "'vary'")
+    _at_least(args.workers, "--workers", 1, "a number of processes")
     out = sweep(study, args.store, workers=args.workers, dask=args.dask, resume=args.resume, progress=not args.quiet)
     done = ", ".join(f"{v} {k}" for k, v in sorted(out.counts.items())) or "none"
     print(f"{study.name}: {out.total} scenarios; {out.already} already in the store; ran {out.ran} on {out.where} "
@@ -280,9 +279,8 @@ def _sweep_report(args) -> int:
 
     from tubeyield.jobs.sweep_summary import summarize
     from tubeyield.report.files import write_json
-    from tubeyield.study import load_study
 
-    study = load_study(args.study) if args.study else None
+    study = _load(args.study) if args.study else None
     summary = summarize(args.store, study, workers=args.workers)
     if args.save:
         write_json(Path(args.save) / "sweep-summary.json", summary)
