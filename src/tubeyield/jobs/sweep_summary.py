@@ -5,7 +5,7 @@
 - Robustness: a candidate operating point is simulated in every scenario; its reliability is the share of scenarios
   in which every limit holds. The recommended point is the candidate with the best mean goal among those meeting the
   limits in at least the study's share (sweep.share) of the scenarios: a sampled chance constraint (sample average
-  approximation; A. Shapiro, D. Dentcheva and A. Ruszczynski, Lectures on Stochastic Programming, SIAM 2009, ch. 5),
+  approximation; A. Shapiro, D. Dentcheva and A. Ruszczynski, Stochastic Programming: Modeling and Theory, SIAM 2009, ch. 5),
   over a finite pool of candidates: the nominal optimum, the study's named candidates, the median of the scenario
   optima, scenario optima spread over the range of the goal, and a backed-off optimum. It is the best of that pool,
   not a global optimum.
