@@ -161,7 +161,9 @@ def test_error_in_included_network_names_that_file(tmp_path):
     (tmp_path / "s.toml").write_text('[study]\ninclude = "net.toml"\n' + BASE_TOML.split("[[reaction]]")[0].split("[study]")[0])
     with pytest.raises(StudyError) as info:
         load_study(tmp_path / "s.toml")
-    assert "net.toml" in info.value.line() or "reaction" in info.value.line()
+    # B is declared nowhere: the mistake is in the network file, and the error says so
+    assert info.value.line().startswith(f"{tmp_path / 'net.toml'}: reaction.r.equation:"), info.value.line()
+    assert "'B'" in info.value.line()
 
 
 def test_invalid_toml_and_missing_file(tmp_path):

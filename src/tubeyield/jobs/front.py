@@ -64,20 +64,23 @@ class FrontResult:
                         "timing": self.timing})
 
     def table(self):
-        """One row per level: level, status, x, y, trade-off, decisions, metrics (pandas)."""
-        import pandas as pd
-        rows = []
-        for i, p in enumerate(self.points):
-            row = {"point": i, "status": p["status"], "dominated": p["dominated"], "knee": i == self.knee,
-                   "level": p["level"], self.x: p["x"], self.y: p["y"], "trade_off_dy_dx": p["trade_off"],
-                   "check_max_rel_error": p["check"]}
-            for name, v in p["decisions"].items():
-                row[f"decision:{name}"] = v if not isinstance(v, list) else f"profile {min(v):.6g}..{max(v):.6g}"
-            for name, v in p["metrics"].items():
-                row[name] = v
-            row["active_limits"] = "; ".join(p["active"])
-            rows.append(row)
-        return pd.DataFrame(rows)
+        return front_table(self.to_dict())
+
+
+def front_table(front: dict):
+    """One row per level of a front (as saved): status, x, y, trade-off, decisions, metrics, active limits."""
+    import pandas as pd
+    rows = []
+    for i, p in enumerate(front["points"]):
+        row = {"point": i, "status": p["status"], "dominated": p["dominated"], "knee": i == front.get("knee"),
+               "level": p["level"], front["x"]: p["x"], front["y"]: p["y"], "trade_off_dy_dx": p["trade_off"],
+               "check_max_rel_error": p["check"]}
+        for name, v in p["decisions"].items():
+            row[f"decision:{name}"] = v if not isinstance(v, list) else f"profile {min(v):.6g}..{max(v):.6g}"
+        row.update(p["metrics"])
+        row["active_limits"] = "; ".join(p["active"])
+        rows.append(row)
+    return pd.DataFrame(rows)
 
 
 def _with_goal(study: Study, metric: Metric, sense: str) -> Study:

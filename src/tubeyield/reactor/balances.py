@@ -1,5 +1,7 @@
-"""Mole and energy balances in scaled form, written once over plain arithmetic (floats, numpy arrays or Pyomo
-expressions), so the collocation model and the scipy reference simulation use the same equations.
+"""The pieces of the mole and energy balances shared by the collocation model (plug.py, stirred.py) and the scipy
+reference simulation (simulate.py): scaling, inlet, concentrations and wall heat transfer, written once over plain
+arithmetic (floats, numpy arrays or Pyomo expressions). Each side assembles the balances below from these pieces and
+the shared rate laws in its own form (named Pyomo expressions; a vectorized right-hand side).
 
 Scaling. The axial coordinate is z = V / V_total in [0, 1] and the state is the scaled molar flow
 u_i = F_i / (v0 C_s), with v0 the inlet volumetric flow and C_s a concentration scale: for a liquid the inlet
@@ -77,19 +79,6 @@ def wall_term(study: Study, par, T, T_cool):
     if study.reactor.heat != "cooled":
         return 0.0
     return par["U"] * 4.0 / study.reactor.diameter * (T_cool - T)
-
-
-def plug_derivatives(study: Study, kin, par, u: dict, T, tau, c_s, T_cool=None):
-    """(du/dz per species, dT/dz or None) of the plug-flow balances."""
-    conc = concentrations(study, u, T, c_s, par)
-    rates = kin.rates(conc, T, math_for(T))
-    R = kin.production(rates)
-    du = {s: tau * R[s] / c_s for s in study.symbols}
-    if study.reactor.heat not in ("adiabatic", "cooled"):
-        return du, None, rates
-    q = kin.heat_release(rates, T) + wall_term(study, par, T, T_cool)
-    dT = tau * q / (c_s * kin.flow_heat_capacity(u))
-    return du, dT, rates
 
 
 def math_for(T):

@@ -44,9 +44,6 @@ class Handle:
     def datas(self):
         return list(self.var) if self.profile else [self.var]
 
-    def expr(self):
-        return self.scale * self.var
-
     def value(self):
         vals = [pyo.value(v) * self.scale for v in self.datas()]
         return vals if self.profile else vals[0]
@@ -177,9 +174,6 @@ class ReactorModel:
     def decision_values(self) -> dict:
         return {name: h.value() for name, h in self.decisions.items()}
 
-    def free_decisions(self) -> list[Handle]:
-        return [h for h in self.decisions.values() if not h.fixed]
-
     # ------------------------------------------------------------------------------------------------- parameters
 
     def set_parameters(self, study: Study) -> None:
@@ -207,10 +201,6 @@ class ReactorModel:
         """Outlet molar flows, mol/s, at the current values."""
         scale = pyo.value(self.c_s) * self.study.feed.flow
         return {s: float(pyo.value(self.u_out[s])) * scale for s in self.study.symbols}
-
-    def inlet_flows(self) -> dict[str, float]:
-        scale = pyo.value(self.c_s) * self.study.feed.flow
-        return {s: float(pyo.value(self.u0[s])) * scale for s in self.study.symbols}
 
     def temperatures(self) -> list[float]:
         return [float(pyo.value(t)) * self.T_scale for t in self.T_points]

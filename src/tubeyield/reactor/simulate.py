@@ -20,7 +20,7 @@ import numpy as np
 from scipy.integrate import solve_ivp
 from scipy.optimize import root
 
-from tubeyield.reactor.balances import concentration_scale, concentrations, inlet, plug_derivatives, wall_term
+from tubeyield.reactor.balances import concentration_scale, concentrations, inlet, wall_term
 from tubeyield.reactor.kinetics import Kinetics
 from tubeyield.reactor.metrics import metric_value
 from tubeyield.reactor.parameters import study_parameters
@@ -101,6 +101,7 @@ class Simulation:
     tanks: list = field(default_factory=list)         # stirred: per tank {species: u, "T": K}
     T_function: object = None
     integrator: str = ""
+    rhs: object = None                                # plug: the right-hand side dy/dz(z, y) integrated
 
     # ------------------------------------------------------------------------------------------------- outlet
 
@@ -161,13 +162,19 @@ class Simulation:
         return out
 
     def derivatives_at(self, z: np.ndarray) -> dict:
+        """d(state)/dz at positions z, from the simulation's own right-hand side (to start the collocation model)."""
         states = self.states_at(z)
-        kin = Kinetics(self.study, self.par)
-        u = {s: states[s] for s in self.study.symbols}
-        du, dT, _ = plug_derivatives(self.study, kin, self.par, u, states["T"], self.decisions["tau"], self.c_s,
-                                     self.decisions.get("T_cool"))
-        out = {s: np.broadcast_to(du[s], (len(z),)).astype(float) for s in self.study.symbols}
-        out["T"] = np.zeros(len(z)) if dT is None else np.broadcast_to(dT, (len(z),)).astype(float)
+        symbols = self.study.symbols
+        energy = self.study.reactor.heat in ("adiabatic", "cooled")
+        out = {s: np.empty(len(z)) for s in symbols}
+        out["T"] = np.zeros(len(z))
+        for i, zi in enumerate(z):
+            y = np.array([states[s][i] for s in symbols] + ([states["T"][i]] if energy else []))
+            dy = self.rhs(float(zi), y)
+            for n, s in enumerate(symbols):
+                out[s][i] = dy[n]
+            if energy:
+                out["T"][i] = dy[len(symbols)]
         return out
 
     def profile(self, n: int = 201):
@@ -256,8 +263,9 @@ def _plug(sim: Simulation, kin: Kinetics, T_fun, T_in, method: str, rtol: float)
     if energy:
         atol[n] = 1e-9 * (rtol / RTOL)
     extra = {} if method == "LSODA" else {"vectorized": True}
+    sim.rhs = rhs = make_rhs(T_fun)
     for z0, z1 in segments:
-        sol = solve_ivp(make_rhs(T_fun), (z0, z1), y, method=method, rtol=rtol, atol=atol, dense_output=True, **extra)
+        sol = solve_ivp(rhs, (z0, z1), y, method=method, rtol=rtol, atol=atol, dense_output=True, **extra)
         if not sol.success:
             raise RuntimeError(f"reference integration failed at z = {sol.t[-1]:.4g}: {sol.message}")
         sim.segments.append((z0, z1, sol, None if energy else (T_fun if callable(T_fun) else _Const(T_fun))))

@@ -191,16 +191,3 @@ def histogram_grid(columns: dict, title: str):
         fig.suptitle(title, fontsize=10.5)
         fig.tight_layout()
     return fig
-
-
-def bars(labels, values, xlabel: str, title: str):
-    with plt.rc_context(STYLE):
-        fig, ax = plt.subplots(figsize=(6.4, 0.35 * len(labels) + 1.2))
-        order = np.argsort(np.abs(values))
-        ax.barh([labels[i] for i in order], [values[i] for i in order],
-                color=[PALETTE[0] if values[i] >= 0 else PALETTE[3] for i in order])
-        ax.set_xlabel(_label(xlabel, ""))
-        ax.set_title(title)
-        ax.axvline(0, color="#444444", lw=0.8)
-        fig.tight_layout()
-    return fig

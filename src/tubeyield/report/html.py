@@ -20,17 +20,9 @@ from tubeyield import __version__
 from tubeyield.errors import StudyError
 from tubeyield.report import figures
 from tubeyield.report.files import write_atomic
-from tubeyield.report.text import CAUTION
+from tubeyield.report.text import CAUTION, fmt
 
 TEMPLATES = Path(__file__).parent / "templates"
-
-
-def fmt(v, digits: int = 5) -> str:
-    if v is None:
-        return "-"
-    if isinstance(v, float):
-        return f"{v:.{digits}g}"
-    return str(v)
 
 
 def _load_json(path: Path):
@@ -85,8 +77,9 @@ def build_report(result_dir, out_dir=None) -> Path:
     if front and front.get("points"):
         figs["front"] = _inline(figures.save(figures.front(front, f"{study.name}: {front['y']} against {front['x']}"),
                                              fig_dir / "front"))
-        tables["front"], front_decisions = _front_table(front)
-        _front_csv(front, tab_dir / "front.csv")
+        tables["front"], front_decisions = _chosen_front_points(front)
+        from tubeyield.jobs.front import front_table
+        write_atomic(tab_dir / "front.csv", front_table(front).to_csv(index=False))
         ok = [p for p in front["points"] if p["status"] == "optimal"]
         front_stats = {"ok": sum(not p["dominated"] for p in ok), "dominated": sum(p["dominated"] for p in ok),
                        "bad": len(front["points"]) - len(ok),
@@ -158,7 +151,7 @@ def _optimum_tables(opt: dict, tab_dir: Path):
     return decisions, limits
 
 
-def _front_table(front: dict):
+def _chosen_front_points(front: dict):
     """The ends, the knee and a few evenly spaced points between them."""
     pts = front["points"]
     ok = [i for i, p in enumerate(pts) if p["status"] == "optimal" and not p["dominated"]]
@@ -176,19 +169,6 @@ def _front_table(front: dict):
         rows.append({"label": chosen[i], "x": fmt(p["x"]), "y": fmt(p["y"]), "trade": fmt(p["trade_off"], 4),
                      "decisions": [fmt(p["decisions"][n]) for n in names], "active": "; ".join(p["active"])})
     return rows, names
-
-
-def _front_csv(front: dict, path: Path) -> None:
-    rows = []
-    for i, p in enumerate(front["points"]):
-        row = {"point": i, "status": p["status"], "dominated": p["dominated"], "knee": i == front.get("knee"),
-               "level": p["level"], front["x"]: p["x"], front["y"]: p["y"], "trade_off_dy_dx": p["trade_off"],
-               "check_max_rel_error": p["check"]}
-        row.update({f"decision:{k}": (v if not isinstance(v, list) else None) for k, v in p["decisions"].items()})
-        row.update(p["metrics"])
-        row["active"] = "; ".join(p["active"])
-        rows.append(row)
-    write_atomic(path, pd.DataFrame(rows).to_csv(index=False))
 
 
 def _window_csv(w, path: Path) -> None:

@@ -6,7 +6,7 @@ CAUTION = ("Model predictions only: verify with calorimetry and a hazard study b
            "follow local codes and licensed engineering practice.")
 
 
-def _fmt(v, digits: int = 5) -> str:
+def fmt(v, digits: int = 5) -> str:
     if v is None:
         return "-"
     if isinstance(v, float):
@@ -20,10 +20,10 @@ def _decision_lines(result) -> list[str]:
     at_bound = {(b["decision"], b["side"]) for b in result.bounds}
     for name, d in result.decisions.items():
         if isinstance(d["value"], list):
-            val = f"profile {_fmt(d['min'])} to {_fmt(d['max'])} {d['unit']}"
+            val = f"profile {fmt(d['min'])} to {fmt(d['max'])} {d['unit']}"
         else:
-            val = f"{_fmt(d['value'])} {d['unit']}".rstrip()
-        rng = "fixed" if d.get("fixed") else (f"[{_fmt(d['low'])}, {_fmt(d['high'])}]" if "low" in d else "")
+            val = f"{fmt(d['value'])} {d['unit']}".rstrip()
+        rng = "fixed" if d.get("fixed") else (f"[{fmt(d['low'])}, {fmt(d['high'])}]" if "low" in d else "")
         flag = "  at lower bound" if (name, "low") in at_bound else "  at upper bound" if (name, "high") in at_bound else ""
         lines.append(f"  {name:<{width}}  {val:<24} {rng}{flag}")
     return lines
@@ -35,21 +35,21 @@ def optimum_summary(result) -> str:
     if result.message:
         out.append(f"  {result.message}")
     if g.get("value") is not None:
-        out.append(f"  {g['metric']} = {_fmt(g['value'], 6)} {g.get('unit', '')}".rstrip())
+        out.append(f"  {g['metric']} = {fmt(g['value'], 6)} {g.get('unit', '')}".rstrip())
     if result.decisions:
         out += ["", "operating point" if result.status == "optimal" else "closest operating point"]
         out += _decision_lines(result)
         if result.volume_m3 is not None:
-            out.append(f"  reactor volume {_fmt(result.volume_m3 * 1000.0)} L")
+            out.append(f"  reactor volume {fmt(result.volume_m3 * 1000.0)} L")
     if result.metrics:
         out += ["", "outlet"]
         width = max(len(k) for k in result.metrics)
         for k, m in result.metrics.items():
-            out.append(f"  {k:<{width}}  {_fmt(m['value'])} {m['unit']}".rstrip())
-    rows = [(lim["text"], _fmt(lim["value"]) + (f" {lim['unit']}" if lim["unit"] else ""), lim["marginal"],
+            out.append(f"  {k:<{width}}  {fmt(m['value'])} {m['unit']}".rstrip())
+    rows = [(lim["text"], fmt(lim["value"]) + (f" {lim['unit']}" if lim["unit"] else ""), lim["marginal"],
              lim["marginal_unit"]) for lim in result.limits if lim.get("active")]
     rows += [(f"{b['decision']} {'lower' if b['side'] == 'low' else 'upper'} bound" if b["side"] != "fixed"
-              else f"{b['decision']} (fixed)", f"{_fmt(b['bound'])} {b['unit']}".rstrip(), b["marginal"],
+              else f"{b['decision']} (fixed)", f"{fmt(b['bound'])} {b['unit']}".rstrip(), b["marginal"],
               b["marginal_unit"]) for b in result.bounds]
     if result.status == "optimal":
         out += ["", "what limits the optimum"]
@@ -65,7 +65,7 @@ def optimum_summary(result) -> str:
     if result.conflicts:
         out += ["", "conflicting limits"]
         for c in result.conflicts:
-            state = "holds at its bound" if c["holds"] else f"missed by {_fmt(c['missed_by'])} {c['unit']}".rstrip()
+            state = "holds at its bound" if c["holds"] else f"missed by {fmt(c['missed_by'])} {c['unit']}".rstrip()
             out.append(f"  {c['limit']}: {state}")
     if result.check is not None:
         c = result.check
@@ -90,15 +90,15 @@ def evaluation_summary(result, notes=()) -> str:
     out = [f"{result.study}: simulated operating point ({result.status})"]
     out += [f"  note: {n}" for n in notes]
     out += ["", "operating point"] + _decision_lines(result)
-    out.append(f"  reactor volume {_fmt(result.volume_m3 * 1000.0)} L")
+    out.append(f"  reactor volume {fmt(result.volume_m3 * 1000.0)} L")
     out += ["", "outlet"]
     width = max(len(k) for k in result.metrics)
     for k, m in result.metrics.items():
-        out.append(f"  {k:<{width}}  {_fmt(m['value'])} {m['unit']}".rstrip())
+        out.append(f"  {k:<{width}}  {fmt(m['value'])} {m['unit']}".rstrip())
     if result.limits:
         out += ["", "limits"]
         for lim in result.limits:
-            out.append(f"  {lim['text']:<28} {_fmt(lim['value'])} {lim['unit']:<4} {'holds' if lim['holds'] else 'MISSED'}")
+            out.append(f"  {lim['text']:<28} {fmt(lim['value'])} {lim['unit']:<4} {'holds' if lim['holds'] else 'MISSED'}")
     out.append(f"\n{result.message}")
     out += ["", CAUTION]
     return "\n".join(out)
@@ -113,11 +113,11 @@ def front_summary(result) -> str:
     for i, p in enumerate(result.points):
         mark = "knee" if i == result.knee else ("dominated" if p["dominated"] else "")
         if p["status"] != "optimal":
-            rows.append(f"  {i:>3}  level {_fmt(p['level'])}: not attainable")
+            rows.append(f"  {i:>3}  level {fmt(p['level'])}: not attainable")
             continue
-        dec = "  ".join(f"{k} {_fmt(v, 4)}" for k, v in p["decisions"].items() if not isinstance(v, list))
-        rows.append(f"  {i:>3}  {result.x} {_fmt(p['x'])}  {result.y} {_fmt(p['y'])}  "
-                    f"d{result.y}/d{result.x} {_fmt(p['trade_off'], 4)}  {dec}  {mark}".rstrip())
+        dec = "  ".join(f"{k} {fmt(v, 4)}" for k, v in p["decisions"].items() if not isinstance(v, list))
+        rows.append(f"  {i:>3}  {result.x} {fmt(p['x'])}  {result.y} {fmt(p['y'])}  "
+                    f"d{result.y}/d{result.x} {fmt(p['trade_off'], 4)}  {dec}  {mark}".rstrip())
     out += rows
     t = result.timing
     if t:
@@ -130,7 +130,7 @@ def window_summary(w) -> str:
     share = float(w.window.mean())
     out = [f"{w.study}: {w.goal} over {w.x} [{w.x_unit}] and {w.y} [{w.y_unit}], "
            f"{len(w.x_values)} x {len(w.y_values)} cells ({w.method})",
-           f"  other decisions: " + (", ".join(f"{k} = {_fmt(v)}" for k, v in w.fixed.items()) or "none"),
+           f"  other decisions: " + (", ".join(f"{k} = {fmt(v)}" for k, v in w.fixed.items()) or "none"),
            f"  every limit holds in {100 * share:.1f} % of the map"]
     for text, h in w.holds.items():
         out.append(f"  {text}: holds in {100 * float(h.mean()):.1f} %")
@@ -138,8 +138,8 @@ def window_summary(w) -> str:
         import numpy as np
         goal = np.where(w.window, w.maps[w.goal], np.nan)
         j, i = np.unravel_index(np.nanargmax(goal), goal.shape)
-        out.append(f"  best cell inside the window: {w.x} {_fmt(w.x_values[i])}, {w.y} {_fmt(w.y_values[j])}, "
-                   f"{w.goal} {_fmt(goal[j, i])}")
+        out.append(f"  best cell inside the window: {w.x} {fmt(w.x_values[i])}, {w.y} {fmt(w.y_values[j])}, "
+                   f"{w.goal} {fmt(goal[j, i])}")
     out.append(f"time: {w.timing.get('total', 0):.2f} s")
     out += ["", CAUTION]
     return "\n".join(out)
@@ -152,7 +152,7 @@ def sweep_summary(summary: dict) -> str:
         v = np.array([x for x in d["values"] if x is not None], dtype=float)
         if v.size:
             p5, p50, p95 = np.percentile(v, [5, 50, 95])
-            out.append(f"  {name:<14} median {_fmt(p50)}  5-95 % {_fmt(p5)} to {_fmt(p95)} {d['unit']}".rstrip())
+            out.append(f"  {name:<14} median {fmt(p50)}  5-95 % {fmt(p5)} to {fmt(p95)} {d['unit']}".rstrip())
     if summary["influence"]:
         out.append(f"what matters most for {summary['goal']} (Spearman rank correlation)")
         for row in summary["influence"]:
@@ -163,7 +163,7 @@ def sweep_summary(summary: dict) -> str:
                    f"{100 * rb['target']:.0f} %):")
         for row in rb["rows"]:
             vals = ", ".join(f"{n} {v}" for n, v in zip(rb["decisions"], row["values"]))
-            out.append(f"  {row['label']:<28} {100 * row['share']:5.1f} %  mean {_fmt(row['mean'])}  ({vals})")
+            out.append(f"  {row['label']:<28} {100 * row['share']:5.1f} %  mean {fmt(row['mean'])}  ({vals})")
         out.append(f"  {rb['text']}")
     out += ["", CAUTION]
     return "\n".join(out)

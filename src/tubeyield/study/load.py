@@ -139,7 +139,10 @@ def study_from_dict(doc: dict, *, path: str = "", source: str = "") -> Study:
         try:
             net = Table(inc_doc, "")
             species += _read_species(net.take("species", {}, types=dict, what="a table of species"), "species")
-            reactions += _read_reactions(net.take("reaction", [], types=list, what="[[reaction]] entries"))
+            included = _read_reactions(net.take("reaction", [], types=list, what="[[reaction]] entries"))
+            for r in included:
+                r.file = str(inc_path)
+            reactions += included
             net.close(("species", "reaction", "study"))
         except StudyError as exc:
             raise exc.in_file(str(inc_path)) from None
@@ -154,7 +157,13 @@ def study_from_dict(doc: dict, *, path: str = "", source: str = "") -> Study:
     _merge_unique(reactions, own_reactions, "reaction", lambda r: r.id)
     if not reactions:
         raise StudyError("reaction", "at least one [[reaction]]; the network is empty")
-    reactions = [_resolve_reaction(r, symbols, i) for i, r in enumerate(reactions)]
+    resolved = []
+    for i, r in enumerate(reactions):
+        try:
+            resolved.append(_resolve_reaction(r, symbols, i))
+        except StudyError as exc:
+            raise (exc.in_file(r.file) if r.file else exc) from None
+    reactions = resolved
 
     by_symbol = {s.symbol: s for s in species}
     feed = _read_feed(top.table("feed"), symbols)
@@ -237,9 +246,10 @@ def _read_reactions(entries: list) -> list["_RawReaction"]:
 
 
 class _RawReaction:
-    def __init__(self, rid: str, body: dict):
+    def __init__(self, rid: str, body: dict, file: str | None = None):
         self.id = rid
         self.body = body
+        self.file = file          # the included network file it came from (None: the study itself)
 
 
 def _resolve_reaction(raw, symbols: set[str], index: int) -> Reaction:

@@ -121,12 +121,6 @@ def _dims(q) -> str:
     return "dimensionless" if not d else str(d)
 
 
-def format_quantity(si_value: float, si_unit: str, user_unit: str, digits: int = 6) -> str:
-    """Format an SI value in the user's unit, e.g. format_quantity(7200, 's', 'min') -> '120 min'."""
-    q = Quantity(si_value, _unit(si_unit)).to(_unit(user_unit))
-    return f"{q.magnitude:.{digits}g} {user_unit}".strip()
-
-
 def convert(si_value: float, si_unit: str, user_unit: str) -> float:
     """Convert an SI magnitude to the user's unit."""
     if si_unit == user_unit:
