@@ -41,7 +41,27 @@ def test_front_is_monotone_and_non_dominated(demo_front):
             if i != j:
                 assert not (x[j] >= x[i] and y[j] >= y[i])
     assert all(p["check"] < 1e-6 for p in pts)
-    assert all(p["trade_off"] > 0 for p in pts[1:])        # dy/dx of the level constraint: giving up y buys x
+
+
+def test_front_slope_matches_finite_differences_of_the_front(demo_front):
+    # The reported slope dy/dx (the optimum's sensitivity to the level) must be the slope of the front itself: at
+    # interior points, the central difference of the neighbours (second-order accurate; common practice). Both
+    # metrics are maximized, so the slope is negative: more conversion costs selectivity.
+    # This front is concave, so the slope at a point also lies between the secants to its two neighbours; next to
+    # the steep x-end the central difference is biased by the curvature and only the bracket is checked.
+    pts = demo_front.front_points()
+    for i in range(1, len(pts) - 1):
+        left = (pts[i]["y"] - pts[i - 1]["y"]) / (pts[i]["x"] - pts[i - 1]["x"])
+        right = (pts[i + 1]["y"] - pts[i]["y"]) / (pts[i + 1]["x"] - pts[i]["x"])
+        assert right <= pts[i]["trade_off"] <= left < 0, i
+        if i < len(pts) - 2:
+            central = (pts[i + 1]["y"] - pts[i - 1]["y"]) / (pts[i + 1]["x"] - pts[i - 1]["x"])
+            assert pts[i]["trade_off"] == pytest.approx(central, rel=2e-2), i
+    # The first level sits on the study's own limit conversion:A >= 0.80, the same constraint twice: the slope there
+    # is the one-sided derivative, checked by the second-order forward difference -(3 y0 - 4 y1 + y2) / (2 h).
+    h = pts[1]["x"] - pts[0]["x"]
+    forward = -(3 * pts[0]["y"] - 4 * pts[1]["y"] + pts[2]["y"]) / (2 * h)
+    assert pts[0]["trade_off"] == pytest.approx(forward, rel=3e-2)
 
 
 def test_front_ends_equal_single_metric_optima(demo, demo_front):
@@ -195,3 +215,25 @@ def test_front_points_equal_cold_optimizations_at_their_level():
         cold = optimize(dataclasses.replace(study, goal=dataclasses.replace(study.goal, metric=spec.y,
                                                                             limits=limits)))
         assert p["y"] == pytest.approx(cold.goal["value"], rel=1e-8), index
+
+
+def test_front_over_a_metric_with_units_sets_levels_in_si():
+    # productivity:B is shown in mol/(L*h) but the model works in mol/(m^3*s): the levels must span the two
+    # single-metric optima in the same units, every level must be met, and the slope must be the front's own.
+    text = (SCENARIOS / "oxidation.toml").read_text().split("[window]")[0]
+    text = text.replace('limits = ["conversion:A >= 0.80", "yield:C <= 0.10", "T <= 400 K"]', 'limits = ["T <= 400 K"]')
+    text = text.replace('x = "conversion:A"\ny = "selectivity:B"', 'x = "productivity:B"\ny = "yield:B"')
+    net = (SCENARIOS / "oxidation-network.toml").read_text()
+    study = study_from_toml(text.replace('include = "oxidation-network.toml"', "") + net)
+    fr = front(study, points=5)
+    assert fr.status == "done" and all(p["status"] == "optimal" for p in fr.points)
+    x_ends = [fr.ends[k]["metrics"]["productivity:B"]["value"] for k in ("y_optimum", "x_optimum")]
+    assert x_ends[1] > 1.2 * x_ends[0]                    # a real trade-off, not a single point
+    pts = fr.points
+    # at the y-end the front is flat (dy/dx = 0), so y pins the point there, x at the other end
+    assert pts[0]["y"] == pytest.approx(fr.ends["y_optimum"]["goal"]["value"], rel=1e-8)
+    assert pts[-1]["x"] == pytest.approx(x_ends[1], rel=1e-6)
+    assert np.all(np.diff([p["x"] for p in pts]) > 0) and np.all(np.diff([p["y"] for p in pts]) < 0)
+    for i in range(1, len(pts) - 1):
+        central = (pts[i + 1]["y"] - pts[i - 1]["y"]) / (pts[i + 1]["x"] - pts[i - 1]["x"])
+        assert pts[i]["trade_off"] == pytest.approx(central, rel=5e-2), i

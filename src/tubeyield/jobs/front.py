@@ -7,7 +7,7 @@
    warm-started from its neighbour (primal values and multipliers): a continuation along the front.
 3. Levels Ipopt cannot meet are marked infeasible; dominated points are dropped; the knee is the point farthest from
    the chord between the ends (in coordinates scaled to the ends). Each point keeps its decisions, all metrics, its
-   active limits and the local trade-off dy/dx (the multiplier of the level constraint).
+   active limits and the local slope dy/dx of the front (the sensitivity of the optimum to the level).
 
 References
 ----------
@@ -28,7 +28,7 @@ import numpy as np
 import pyomo.environ as pyo
 
 from tubeyield import __version__
-from tubeyield.jobs.optimize import _user_decisions, metric_display, optimize, prepare
+from tubeyield.jobs.optimize import SAME_OPTIMUM, _user_decisions, metric_display, optimize, prepare
 from tubeyield.jobs.result import Result, _finite
 from tubeyield.reactor.metrics import all_metrics
 from tubeyield.reactor.verify import compare, reference
@@ -121,13 +121,14 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
         result.message = f"the single-metric optimum failed: {bad.message}"
         return result
 
-    x_start = y_opt.metrics[spec.x.text]["value"]
-    x_end = x_opt.metrics[spec.x.text]["value"]
+    # Levels are set on the model, in SI; results hold display units (mol/L, mol/(L*h)).
+    x_start = y_opt.metrics[spec.x.text]["value"] / _display_factor(spec.x)
+    x_end = x_opt.metrics[spec.x.text]["value"] / _display_factor(spec.x)
     sign = 1.0 if xs == "max" else -1.0
-    if sign * (x_end - x_start) <= 1e-9 * max(1.0, abs(x_end)):
+    if sign * (x_end - x_start) <= SAME_OPTIMUM * max(abs(x_start), abs(x_end)):
         result.status = "single point"
         result.message = (f"no trade-off: the optimum of {spec.y.text} is also the optimum of {spec.x.text}")
-        result.points = [_point_from_result(y_opt, spec, x_start)]
+        result.points = [_point_from_result(y_opt, spec, y_opt.metrics[spec.x.text]["value"])]
         result.knee = 0
         return result
 
@@ -136,7 +137,7 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
     if elements != model.elements or x_scale is None:
         # the ends needed a finer mesh (or the x metric needs its own scale): a front model to match
         x_scale = x_scale or max(abs(x_start), abs(x_end), 1e-300)
-        model = prepare(fstudy, elements, scale_hint=y_opt.goal["value"])
+        model = prepare(fstudy, elements, scale_hint=y_opt.goal["value"] / _display_factor(spec.y))
         model.add_level(LEVEL, spec.x, ">=" if xs == "max" else "<=", x_start, x_scale)
         _start_from(model, study, y_opt.decisions_si)
         y_snapshot = None
@@ -177,6 +178,8 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
     n_bad = sum(p["status"] != "optimal" for p in result.points)
     if n_bad:
         result.message = f"{n_bad} of {len(result.points)} levels could not be met"
+    if n_bad == len(result.points):
+        result.status = "failed"
     timing["total"] = time.perf_counter() - t0
     return result
 
@@ -194,11 +197,20 @@ def _point(model, study: Study, spec, level: float, solver) -> dict:
         metrics[met.text] = metric_display(met, model.metric_value(met))[0]
     x = metric_display(spec.x, model.metric_value(spec.x))[0]
     y = metric_display(spec.y, model.metric_value(spec.y))[0]
-    level_con = model.m.component(LEVEL)
-    # dual of the level constraint: d y_scaled / d level_scaled -> dy/dx in display units
-    dual = model.m.dual.get(level_con, 0.0) or 0.0
-    _, x_scale = model.levels[LEVEL]
-    dy_dx = dual * model.goal_scale / x_scale
+    # The local slope of the front, dy/dx: the sensitivity of the optimal objective to the level, which is a pinned
+    # variable (a casadi parameter, its multiplier loaded as its reduced cost). Unlike the constraint's dual, it does
+    # not depend on how the writer orients `x >= level`. Scaled objective per scaled level -> display units.
+    # A study limit on the same metric in the same direction at this level (the first level often sits on it) is the
+    # same constraint twice: Ipopt splits the multiplier between the two, and moving the level past the limit frees
+    # neither, so the slope is their sum.
+    level_var, x_scale = model.levels[LEVEL]
+    sensitivity = (model.m.rc.get(level_var, 0.0) or 0.0) / x_scale
+    sense = ">=" if spec.x_sense == "max" else "<="
+    for lh in model.limits:
+        lim = lh.limit
+        if lim.metric == spec.x and lim.sense == sense and abs(lim.bound - level) <= 1e-6 * max(1.0, abs(level)):
+            sensitivity += sum(model.m.dual.get(c, 0.0) or 0.0 for c in lh.constraints) / lh.scale
+    dy_dx = sensitivity * model.goal_scale
     dy_dx *= _display_factor(spec.y) / _display_factor(spec.x)
     active = [r.text for r in limit_reports(model) if r.active]
     active += [f"{b.decision} at {b.side} bound" for b in bound_reports(model) if b.side in ("low", "high")]
