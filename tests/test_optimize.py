@@ -173,3 +173,20 @@ def test_cli_simulate_sets_decisions(tmp_path):
 def test_cli_simulate_bad_setting_is_user_error():
     r = _cli("simulate", str(SCENARIOS / "oxidation.toml"), "--set", "tau=hot")
     assert r.returncode == 2 and r.stderr.startswith("error: --set tau:") and "Traceback" not in r.stderr
+
+
+def test_cli_simulate_outside_the_range_is_noted_and_a_negative_time_refused():
+    r = _cli("simulate", str(SCENARIOS / "oxidation.toml"), "--set", "tau=500min", "--json")
+    assert r.returncode == 0, r.stderr
+    assert any("tau = 500 min is outside the study's range [1, 90] min" in n for n in json.loads(r.stdout)["notes"])
+    r = _cli("simulate", str(SCENARIOS / "oxidation.toml"), "--set", "tau=-5min")
+    assert r.returncode == 2 and r.stderr.startswith("error: --set tau: a positive value") and "Traceback" not in r.stderr
+
+
+def test_cli_unwritable_save_directory_is_one_line_exit_2(tmp_path):
+    blocker = tmp_path / "a-file"
+    blocker.write_text("not a directory")
+    r = _cli("optimize", str(SCENARIOS / "oxidation.toml"), "--save", str(blocker / "results"))
+    assert r.returncode == 2 and "Traceback" not in r.stderr
+    assert r.stderr.startswith(f"error: {blocker / 'results'}") and len(r.stderr.strip().splitlines()) == 1
+    assert blocker.read_text() == "not a directory"

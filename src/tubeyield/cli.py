@@ -11,7 +11,7 @@ import json
 import sys
 
 from tubeyield import __version__
-from tubeyield.errors import StudyError
+from tubeyield.errors import SolverUnavailable, StudyError
 
 EXIT_OK, EXIT_FAILED, EXIT_USER, EXIT_INFEASIBLE = 0, 1, 2, 3
 
@@ -81,6 +81,15 @@ def main(argv: list[str] | None = None) -> int:
     except StudyError as exc:
         print(f"error: {exc.line()}", file=sys.stderr)
         return EXIT_USER
+    except OSError as exc:
+        # a path the user gave cannot be written or read (--save, --out, --profile, --store): one line, no traceback;
+        # files are written atomically, so nothing partial is left
+        where = exc.filename or getattr(args, "study", "") or ""
+        print(f"error: {where}: {exc.strerror or exc}", file=sys.stderr)
+        return EXIT_USER
+    except SolverUnavailable as exc:
+        print(f"error: {getattr(args, 'study', '')}: numerics.solver: {exc}", file=sys.stderr)
+        return EXIT_FAILED
     except KeyboardInterrupt:
         print("interrupted", file=sys.stderr)
         return 130

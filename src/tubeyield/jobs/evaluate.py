@@ -30,9 +30,19 @@ def parse_settings(study: Study, settings: list[str]) -> tuple[dict, list[str]]:
             raise StudyError(f"--set {text}", f"a decision, one of {', '.join(names)}")
         d = study.decision(targets[0])
         v = to_si(raw.strip(), _KIND[d.si_unit], f"--set {name}")
+        if v < 0 or (v == 0 and d.si_unit in ("s", "K")):
+            raise StudyError(f"--set {name}", f"a {'positive' if d.si_unit in ('s', 'K') else 'non-negative'} "
+                                              f"value, got {raw.strip()!r}")
         for n in targets:
             values[n] = v
     notes = []
+    for name, v in values.items():
+        d = study.decision(name)
+        if not d.low * (1 - 1e-12) <= v <= d.high * (1 + 1e-12):
+            conv = (lambda x: convert(x, d.si_unit, d.unit)) if d.unit else (lambda x: x)
+            u = f" {d.unit}" if d.unit else ""
+            notes.append(f"{name} = {conv(v):.6g}{u} is outside the study's range [{conv(d.low):.6g}, "
+                         f"{conv(d.high):.6g}]{u}")
     for d in study.decisions:
         if d.name not in values:
             values[d.name] = d.low if d.fixed else 0.5 * (d.low + d.high)
