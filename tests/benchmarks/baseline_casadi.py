@@ -14,7 +14,7 @@ import numpy as np
 
 from problem import R, Problem
 
-IPOPT = {"mu_strategy": "adaptive", "mumps_scaling": 0, "mumps_permuting_scaling": 0, "tol": 1e-10,
+IPOPT = {"mu_strategy": "adaptive", "mumps_scaling": 8, "mumps_permuting_scaling": 0, "tol": 1e-10,
          "acceptable_tol": 1e-7, "max_iter": 1000, "bound_push": 1e-8, "bound_frac": 1e-8,
          "bound_mult_init_method": "mu-based", "bound_relax_factor": 0.0, "print_level": 0, "sb": "yes"}
 

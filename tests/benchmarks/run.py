@@ -289,6 +289,8 @@ def network_text(n_species: int, seed: int = 5) -> str:
     return "\n".join(lines) + "\n"
 
 
+CHILD_LIMIT = 600   # seconds per scaling run: a case that takes longer is reported as such, the others still are
+
 CHILD = r"""
 import json, resource, sys, time
 sys.path.insert(0, {here!r})
@@ -309,7 +311,10 @@ def _child(text: str, tmp: Path, name: str) -> dict:
     path = tmp / f"{name}.toml"
     path.write_text(text)
     code = CHILD.format(here=str(HERE), path=str(path))
-    r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=1800)
+    try:
+        r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=CHILD_LIMIT)
+    except subprocess.TimeoutExpired:
+        return {"error": f"did not finish within {CHILD_LIMIT} s"}
     if r.returncode != 0:
         return {"error": r.stderr[-500:]}
     return json.loads(r.stdout.strip().splitlines()[-1])

@@ -182,6 +182,11 @@ def _same(a: float, b: float) -> bool:
     return abs(a - b) <= SAME_OPTIMUM * max(1.0, abs(b))
 
 
+# A refined mesh starts from the coarse optimum, re-simulated: a point already close to the optimum, so the barrier
+# starts small and decreases monotonically instead of pushing the iterates back into the interior.
+REFINE_OPTIONS = {"mu_strategy": "monotone", "mu_init": 1e-6}
+
+
 def _verify_and_refine(study, model, solver, options, timing, tee):
     """Re-simulate; while the outlet flows differ by more than the tolerance, double the elements and re-solve
     from the refined simulation (automatic, up to numerics.max_elements)."""
@@ -201,7 +206,7 @@ def _verify_and_refine(study, model, solver, options, timing, tee):
             decisions["T"] = [T_fun(z) for z in finer.inner]
         finer.set_decisions(decisions)
         finer.initialize(sim)
-        res = _solve(solver, finer, timing, options=options, tee=tee)
+        res = _solve(solver, finer, timing, options={**REFINE_OPTIONS, **options}, tee=tee)
         if res.solver.termination_condition not in OK_CONDITIONS:
             break
         refinements += 1
