@@ -173,6 +173,10 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
             if previous is not None:
                 model.restore(previous)
     timing["points"] = time.perf_counter() - t
+    if result.points and result.points[-1]["status"] == "optimal":
+        # At the x-end the feasible set shrinks to a point: the front ends steeply and the multipliers there are
+        # ill-determined (measured: -5 in one run, -640 in another), so no slope is reported.
+        result.points[-1]["trade_off"] = None
     _mark_dominated(result.points, xs, ys)
     result.knee = _knee(result.points, xs, ys)
     n_bad = sum(p["status"] != "optimal" for p in result.points)
