@@ -44,8 +44,9 @@ from tubeyield.errors import SolverUnavailable
 
 NAME = "tubeyield-ipopt"
 
-# Options measured to suit collocation models of reaction networks (SOLVER_NOTES.md): MUMPS's permutation-based
-# scaling slows these models down; the adaptive barrier update cuts iterations several-fold. MUMPS's row and column
+# Options measured to suit collocation models of reaction networks (SOLVER_NOTES.md): the adaptive barrier update
+# cuts iterations several-fold; MUMPS's permutation-based scaling stays off (with the row and column scaling on, it
+# changed nothing on the demo or the stiff networks below). MUMPS's row and column
 # iterative scaling (mumps_scaling 8) must stay on: without it, a 16-species network with rate constants over 12
 # decades took 1.7 s per Ipopt iteration (257 iterations, 441 s) and a 20-species one did not finish in 30 min,
 # against 44 iterations in 0.75 s and 237 in 7 s with it; the demo is unchanged (75-77 iterations over 4 starts).
