@@ -43,6 +43,10 @@ def test_front_is_monotone_and_non_dominated(demo_front):
     assert all(p["check"] < 1e-6 for p in pts)
 
 
+def _central_slope(pts, i):
+    return (pts[i + 1]["y"] - pts[i - 1]["y"]) / (pts[i + 1]["x"] - pts[i - 1]["x"])
+
+
 def test_front_slope_matches_finite_differences_of_the_front(demo_front):
     # The reported slope dy/dx (the optimum's sensitivity to the level) must be the slope of the front itself: at
     # interior points, the central difference of the neighbours (second-order accurate; common practice). Both
@@ -55,8 +59,7 @@ def test_front_slope_matches_finite_differences_of_the_front(demo_front):
         right = (pts[i + 1]["y"] - pts[i]["y"]) / (pts[i + 1]["x"] - pts[i]["x"])
         assert right <= pts[i]["trade_off"] <= left < 0, i
         if i < len(pts) - 2:
-            central = (pts[i + 1]["y"] - pts[i - 1]["y"]) / (pts[i + 1]["x"] - pts[i - 1]["x"])
-            assert pts[i]["trade_off"] == pytest.approx(central, rel=2e-2), i
+            assert pts[i]["trade_off"] == pytest.approx(_central_slope(pts, i), rel=2e-2), i
     # The first level sits on the study's own limit conversion:A >= 0.80, the same constraint twice: the slope there
     # is the one-sided derivative, checked by the second-order forward difference -(3 y0 - 4 y1 + y2) / (2 h).
     h = pts[1]["x"] - pts[0]["x"]
@@ -235,5 +238,4 @@ def test_front_over_a_metric_with_units_sets_levels_in_si():
     assert pts[-1]["x"] == pytest.approx(x_ends[1], rel=1e-6)
     assert np.all(np.diff([p["x"] for p in pts]) > 0) and np.all(np.diff([p["y"] for p in pts]) < 0)
     for i in range(1, len(pts) - 1):
-        central = (pts[i + 1]["y"] - pts[i - 1]["y"]) / (pts[i + 1]["x"] - pts[i - 1]["x"])
-        assert pts[i]["trade_off"] == pytest.approx(central, rel=5e-2), i
+        assert pts[i]["trade_off"] == pytest.approx(_central_slope(pts, i), rel=5e-2), i

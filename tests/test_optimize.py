@@ -190,3 +190,13 @@ def test_cli_unwritable_save_directory_is_one_line_exit_2(tmp_path):
     assert r.returncode == 2 and "Traceback" not in r.stderr
     assert r.stderr.startswith(f"error: {blocker / 'results'}") and len(r.stderr.strip().splitlines()) == 1
     assert blocker.read_text() == "not a directory"
+
+
+def test_cli_unknown_ipopt_option_is_a_study_error(tmp_path):
+    # numerics.ipopt is passed to Ipopt unchecked; an option Ipopt does not know is the study's mistake: exit 2
+    text = (SCENARIOS / "oxidation.toml").read_text().replace("[front]", "[numerics]\nipopt = { bogus_option = 1 }\n\n[front]")
+    (tmp_path / "s.toml").write_text(text)
+    (tmp_path / "oxidation-network.toml").write_text((SCENARIOS / "oxidation-network.toml").read_text())
+    r = _cli("optimize", str(tmp_path / "s.toml"))
+    assert r.returncode == 2 and "Traceback" not in r.stderr
+    assert r.stderr.startswith(f"error: {tmp_path / 's.toml'}: numerics.ipopt:") and "bogus_option" in r.stderr

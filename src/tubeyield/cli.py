@@ -11,7 +11,7 @@ import json
 import sys
 
 from tubeyield import __version__
-from tubeyield.errors import SolverUnavailable, StudyError
+from tubeyield.errors import SolverOptionRefused, SolverUnavailable, StudyError
 
 EXIT_OK, EXIT_FAILED, EXIT_USER, EXIT_INFEASIBLE = 0, 1, 2, 3
 
@@ -86,6 +86,10 @@ def main(argv: list[str] | None = None) -> int:
         # files are written atomically, so nothing partial is left
         where = exc.filename or getattr(args, "study", "") or ""
         print(f"error: {where}: {exc.strerror or exc}", file=sys.stderr)
+        return EXIT_USER
+    except SolverOptionRefused as exc:
+        # numerics.ipopt is passed through unchecked: Ipopt is the one that knows its options
+        print(f"error: {getattr(args, 'study', '')}: numerics.ipopt: {exc}", file=sys.stderr)
         return EXIT_USER
     except SolverUnavailable as exc:
         print(f"error: {getattr(args, 'study', '')}: numerics.solver: {exc}", file=sys.stderr)
@@ -277,7 +281,7 @@ def _sweep(args) -> int:
     print(f"{study.name}: {out.total} scenarios; {out.already} already in the store; ran {out.ran} on {out.where} "
           f"in {out.seconds:.1f} s ({done})")
     if out.interrupted:
-        print(f"interrupted: the store keeps every finished scenario; run again with --resume to finish",
+        print("interrupted: the store keeps every finished scenario; run again with --resume to finish",
               file=sys.stderr)
         return 130
     return EXIT_OK

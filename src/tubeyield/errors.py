@@ -30,3 +30,7 @@ class StudyError(Exception):
 
 class SolverUnavailable(Exception):
     """The solver cannot take this model (integer variables, unsupported operators) or cannot be started."""
+
+
+class SolverOptionRefused(SolverUnavailable):
+    """Ipopt does not know an option or refuses its value: a mistake in the study's numerics.ipopt."""

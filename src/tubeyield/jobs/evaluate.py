@@ -10,7 +10,7 @@ from tubeyield.reactor.metrics import all_metrics
 from tubeyield.reactor.simulate import simulate
 from tubeyield.solve.multistart import violation
 from tubeyield.study.schema import Study
-from tubeyield.study.units import convert, to_si
+from tubeyield.study.units import convert, decision_to_user, to_si
 
 _KIND = {"s": "time", "K": "temperature", "": "dimensionless"}
 
@@ -39,15 +39,14 @@ def parse_settings(study: Study, settings: list[str]) -> tuple[dict, list[str]]:
     for name, v in values.items():
         d = study.decision(name)
         if not d.low * (1 - 1e-12) <= v <= d.high * (1 + 1e-12):
-            conv = (lambda x: convert(x, d.si_unit, d.unit)) if d.unit else (lambda x: x)
+            low, high, shown = decision_to_user([d.low, d.high, v], d)
             u = f" {d.unit}" if d.unit else ""
-            notes.append(f"{name} = {conv(v):.6g}{u} is outside the study's range [{conv(d.low):.6g}, "
-                         f"{conv(d.high):.6g}]{u}")
+            notes.append(f"{name} = {shown:.6g}{u} is outside the study's range [{low:.6g}, {high:.6g}]{u}")
     for d in study.decisions:
         if d.name not in values:
             values[d.name] = d.low if d.fixed else 0.5 * (d.low + d.high)
             if not d.fixed:
-                shown = convert(values[d.name], d.si_unit, d.unit) if d.unit else values[d.name]
+                shown = decision_to_user(values[d.name], d)
                 notes.append(f"{d.name} not set: the middle of its range, {shown:.6g} {d.unit}".rstrip())
     return values, notes
 
@@ -79,7 +78,7 @@ def evaluate(study: Study, values: dict) -> Result:
     decisions = {}
     for d in study.decisions:
         v = values[d.name]
-        decisions[d.name] = {"value": convert(v, d.si_unit, d.unit) if d.unit else v, "unit": d.unit}
+        decisions[d.name] = {"value": decision_to_user(v, d), "unit": d.unit}
     gval, gunit = metric_display(study.goal.metric, sim.metric(study.goal.metric))
     status = "meets limits" if violation(study, sim) <= 1e-9 else "misses limits"
     return Result(status, study.name, {"metric": study.goal.metric.text, "sense": study.goal.sense, "value": gval,

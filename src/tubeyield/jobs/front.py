@@ -25,7 +25,6 @@ import time
 from dataclasses import dataclass, field
 
 import numpy as np
-import pyomo.environ as pyo
 
 from tubeyield import __version__
 from tubeyield.jobs.optimize import SAME_OPTIMUM, _user_decisions, metric_display, optimize, prepare

@@ -20,7 +20,7 @@ from tubeyield.solve import multistart
 from tubeyield.solve.marginals import bound_reports, limit_reports
 from tubeyield.jobs.result import Result
 from tubeyield.study.schema import Study
-from tubeyield.study.units import convert, unit_step
+from tubeyield.study.units import convert, decision_to_user, unit_step
 
 SAME_OPTIMUM = 1e-6    # relative difference of goal values that counts as the same optimum
 
@@ -309,14 +309,7 @@ def _failed(study, message, timing, runs=()) -> Result:
 
 
 def _user_decisions(study: Study, values: dict) -> dict:
-    out = {}
-    for name, v in values.items():
-        d = study.decision(name)
-        if isinstance(v, list):
-            out[name] = [convert(x, d.si_unit, d.unit) if d.unit else x for x in v]
-        else:
-            out[name] = convert(v, d.si_unit, d.unit) if d.unit else v
-    return out
+    return {name: decision_to_user(v, study.decision(name)) for name, v in values.items()}
 
 
 def metric_display(metric, value_si: float) -> tuple[float, str]:
@@ -330,12 +323,10 @@ def _result(study: Study, model: ReactorModel, status: str, check, starts_info: 
     decisions = {}
     for name, v in values.items():
         d = study.decision(name)
-        conv = (lambda x: convert(x, d.si_unit, d.unit)) if d.unit else (lambda x: x)
-        entry = {"unit": d.unit, "low": conv(d.low), "high": conv(d.high), "fixed": d.fixed}
+        low, high = decision_to_user([d.low, d.high], d)
+        entry = {"unit": d.unit, "low": low, "high": high, "fixed": d.fixed, "value": decision_to_user(v, d)}
         if isinstance(v, list):
-            entry.update(value=[conv(x) for x in v], z=list(model.inner), min=conv(min(v)), max=conv(max(v)))
-        else:
-            entry["value"] = conv(v)
+            entry.update(z=list(model.inner), min=decision_to_user(min(v), d), max=decision_to_user(max(v), d))
         decisions[name] = entry
     metrics = {}
     for met in all_metrics(study):

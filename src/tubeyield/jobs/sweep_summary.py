@@ -27,7 +27,7 @@ from tubeyield.errors import StudyError
 from tubeyield.jobs.scenario import apply_values
 from tubeyield.jobs.store import open_existing
 from tubeyield.study.schema import Study
-from tubeyield.study.units import convert
+from tubeyield.study.units import decision_to_user
 
 MAX_POOL = 12   # scenario optima added to the candidate pool
 
@@ -61,7 +61,7 @@ def _user(study: Study, name: str, v):
     d = study.decision(name)
     if isinstance(v, list):
         return None
-    return convert(v, d.si_unit, d.unit) if d.unit else v
+    return decision_to_user(v, d)
 
 
 def _evaluate_candidate(args):

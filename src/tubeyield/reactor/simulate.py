@@ -217,7 +217,6 @@ def simulate(study: Study, decisions: dict, T_profile=None, guess: list | None =
     kin = Kinetics(study, par)
     c_ref = concentration_scale(study)
     ratio = {d.name[6:]: decisions[d.name] for d in study.decisions if d.name.startswith("ratio.")}
-    heat = study.reactor.heat
     T_fun = T_profile if T_profile is not None else temperature_profile(study, decisions)
     T_in = decisions.get("T_in")
     if T_in is None:

@@ -40,7 +40,7 @@ import pyomo.environ as pyo
 from pyomo.opt import SolverFactory, SolverResults, SolverStatus, TerminationCondition
 from pyomo.repn.plugins.nl_writer import NLWriter
 
-from tubeyield.errors import SolverUnavailable
+from tubeyield.errors import SolverOptionRefused, SolverUnavailable
 
 NAME = "tubeyield-ipopt"
 
@@ -363,7 +363,7 @@ def _build(written: _Written, pinned_mask: np.ndarray, opts: dict, tee: bool) ->
         solver = casadi.nlpsol("tubeyield", "ipopt", nlp, {"expand": True, "print_time": False, "error_on_fail": False,
                                                           "ipopt": ipopt_opts})
     except RuntimeError as exc:
-        raise SolverUnavailable(f"{NAME}: Ipopt refused an option ({str(exc).splitlines()[-1]})") from None
+        raise SolverOptionRefused(f"{NAME}: Ipopt refused an option ({str(exc).splitlines()[-1]})") from None
     return _Built(solver, free, pinned, build_seconds=time.perf_counter() - t0)
 
 

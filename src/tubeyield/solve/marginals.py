@@ -18,7 +18,7 @@ import pyomo.environ as pyo
 
 from tubeyield.reactor.metrics import DISPLAY_UNIT
 from tubeyield.reactor.model import ReactorModel
-from tubeyield.study.units import convert, unit_step
+from tubeyield.study.units import convert, decision_to_user, unit_step
 
 ACTIVE_DUAL = 1e-7        # |marginal| (scaled) above which a limit counts as active
 ACTIVE_BOUND = 1e-6       # distance to a bound, relative to the decision's range, that counts as at the bound
@@ -101,7 +101,7 @@ def bound_reports(model: ReactorModel) -> list[BoundReport]:
         unit_label = _per(model, name, d.unit)
         if h.fixed:
             per_si = sum(rcs) * model.goal_scale / h.scale
-            out.append(BoundReport(name, "fixed", _user(d.low, d), d.unit, _goal_to_display(model, per_si) * step,
+            out.append(BoundReport(name, "fixed", decision_to_user(d.low, d), d.unit, _goal_to_display(model, per_si) * step,
                                    unit_label))
             continue
         span = h.high - h.low
@@ -112,12 +112,7 @@ def bound_reports(model: ReactorModel) -> list[BoundReport]:
             per_si = sum(rcs[i] for i in at) * model.goal_scale / h.scale
             if abs(sum(rcs[i] for i in at)) <= ACTIVE_DUAL:
                 continue
-            out.append(BoundReport(name, side, _user(bound, d), d.unit, _goal_to_display(model, per_si) * step,
+            out.append(BoundReport(name, side, decision_to_user(bound, d), d.unit, _goal_to_display(model, per_si) * step,
                                    unit_label, share=len(at) / len(datas)))
     return out
 
-
-def _user(si: float, d) -> float:
-    if not d.unit:
-        return si
-    return convert(si, d.si_unit, d.unit)

@@ -128,6 +128,13 @@ def convert(si_value: float, si_unit: str, user_unit: str) -> float:
     return float(Quantity(si_value, _unit(si_unit)).to(_unit(user_unit)).magnitude)
 
 
+def decision_to_user(value, decision):
+    """An SI decision value (or a profile: a list of values) in the unit the user wrote the decision in."""
+    if isinstance(value, (list, tuple)):
+        return [decision_to_user(v, decision) for v in value]
+    return convert(value, decision.si_unit, decision.unit) if decision.unit else value
+
+
 def unit_step(user_unit: str, si_unit: str) -> float:
     """SI size of one user unit taken as a difference (one degC step is one K), for marginal values per unit."""
     if not user_unit:
