@@ -169,14 +169,14 @@ def _tau_rows(study: Study, base: dict, xs, ys, spec):
         point["tau"] = tau_max
         sim = simulate(study, point, rtol=WINDOW_RTOL)
         states = sim.states_at(f)
-        u = {s: states[s] for s in study.symbols}
-        conc = concentrations(study, u, states["T"], sim.c_s, sim.par)
+        u = states.flows
+        conc = concentrations(study, u, states.T, sim.c_s, sim.par)
 
         def value(metric):
             return np.broadcast_to(metric_value(study, metric, u, sim.u_in, np.asarray(taus), sim.c_s, conc), f.shape)
 
         columns = {study.goal.metric.text: metric_display(study.goal.metric, 1.0)[0] * value(study.goal.metric)}
-        T_fine = sim.states_at(fine)["T"]
+        T_fine = sim.states_at(fine).T
         for lim in study.goal.limits:
             if lim.metric is None:
                 running = np.maximum.accumulate(T_fine) if lim.sense == "<=" else np.minimum.accumulate(T_fine)

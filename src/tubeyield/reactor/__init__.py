@@ -23,15 +23,8 @@ def paused_gc():
 
 
 def state_scales(sim, floor_share: float = 1e-9) -> dict:
-    """Typical size of each species' scaled flow in a simulation: its largest value along the reactor, floored at
-    `floor_share` of the total inlet (a species that never forms keeps a scale that its first trace can reach)."""
-    import numpy as np
-    total = sum(abs(v) for v in sim.u_in.values()) or 1.0
-    floor = floor_share * total
-    if sim.tanks:
-        return {s: max(max(abs(t[s]) for t in sim.tanks), abs(sim.u_in[s]), floor) for s in sim.study.symbols}
-    states = sim.states_at(np.linspace(0.0, 1.0, 201))
-    return {s: max(float(np.max(np.abs(states[s]))), abs(sim.u_in[s]), floor) for s in sim.study.symbols}
+    """Typical size of each species' scaled flow in a simulation (see `Simulation.typical_sizes`)."""
+    return sim.typical_sizes(floor_share)
 
 
 def build(study: Study, elements: int | None = None, state_scale: dict | None = None) -> ReactorModel:

@@ -163,15 +163,13 @@ class PlugModel(ReactorModel):
         m = self.m
         z = np.array(self.points)
         states = sim.states_at(z)
-        for s in self.study.symbols:
-            for zi, v in zip(self.points, states[s]):
-                m.u[s, zi].set_value(max(float(v), 0.0) / self.state_scale[s], skip_validation=True)
         derivs = sim.derivatives_at(z)
         for s in self.study.symbols:
-            for zi, v in zip(self.points, derivs[s]):
-                m.du[s, zi].set_value(float(v) / self.state_scale[s], skip_validation=True)
+            for zi, v, dv in zip(self.points, states.flows[s], derivs.flows[s]):
+                m.u[s, zi].set_value(max(float(v), 0.0) / self.state_scale[s], skip_validation=True)
+                m.du[s, zi].set_value(float(dv) / self.state_scale[s], skip_validation=True)
         if self.study.reactor.heat in ("adiabatic", "cooled"):
-            for zi, v, dv in zip(self.points, states["T"], derivs["T"]):
+            for zi, v, dv in zip(self.points, states.T, derivs.T):
                 m.theta[zi].set_value(float(v) / self.T_scale, skip_validation=True)
                 m.dtheta[zi].set_value(float(dv) / self.T_scale, skip_validation=True)
 

@@ -90,6 +90,14 @@ def _radau(n: int) -> list[float]:
     return list((x + 1.0) / 2.0)
 
 
+@dataclass(frozen=True)
+class States:
+    """Scaled molar flows by species and the temperature (K), at one or more positions. Species and temperature live
+    in separate fields, so any species symbol (T, tau, z ...) is just a key of `flows`."""
+    flows: dict
+    T: object                 # ndarray (plug positions) or float (one tank)
+
+
 @dataclass
 class Simulation:
     study: Study
@@ -98,7 +106,7 @@ class Simulation:
     c_s: float
     par: dict
     segments: list = field(default_factory=list)      # plug: (z0, z1, solve_ivp solution, T function or None)
-    tanks: list = field(default_factory=list)         # stirred: per tank {species: u, "T": K}
+    tanks: list = field(default_factory=list)         # stirred: one States per tank
     T_function: object = None
     integrator: str = ""
     rhs: object = None                                # plug: the right-hand side dy/dz(z, y) integrated
@@ -108,14 +116,14 @@ class Simulation:
     @property
     def u_out(self) -> dict:
         if self.tanks:
-            return {s: self.tanks[-1][s] for s in self.study.symbols}
-        return {s: v[-1] for s, v in self.states_at(np.array([1.0])).items() if s != "T"}
+            return dict(self.tanks[-1].flows)
+        return {s: float(v[-1]) for s, v in self.states_at(np.array([1.0])).flows.items()}
 
     @property
     def T_out(self) -> float:
         if self.tanks:
-            return self.tanks[-1]["T"]
-        return float(self.states_at(np.array([1.0]))["T"][-1])
+            return self.tanks[-1].T
+        return float(self.states_at(np.array([1.0])).T[-1])
 
     def outlet_flows(self) -> dict:
         scale = self.c_s * self.study.feed.flow
@@ -129,26 +137,53 @@ class Simulation:
         conc = concentrations(self.study, self.u_out, self.T_out, self.c_s, self.par)
         return float(metric_value(self.study, metric, self.u_out, self.u_in, self.decisions["tau"], self.c_s, conc))
 
-    def max_temperature(self) -> float:
+    def temperature_extreme(self, sense: str = "max") -> tuple[float, float]:
+        """(the highest (sense 'max') or lowest temperature along the reactor, where): the hot spot, found on a
+        401-point grid and refined between its neighbours by bounded scalar minimization (Brent's method,
+        scipy.optimize.minimize_scalar) on the dense output. Tanks: the tank number (1-based) as the position."""
+        sign = 1.0 if sense == "max" else -1.0
         if self.tanks:
-            return max(t["T"] for t in self.tanks)
-        z = np.linspace(0, 1, 401)
-        return float(np.max(self.states_at(z)["T"]))
+            k = int(np.argmax([sign * t.T for t in self.tanks]))
+            return float(self.tanks[k].T), float(k + 1)
+        z = np.linspace(0.0, 1.0, 401)
+        T = self.states_at(z).T
+        i = int(np.argmax(sign * T))
+        best_T, best_z = float(T[i]), float(z[i])
+        if 0 < i < len(z) - 1 and np.ptp(T) > 0:
+            from scipy.optimize import minimize_scalar
+            res = minimize_scalar(lambda x: -sign * float(self.states_at(np.array([x])).T[0]),
+                                  bounds=(z[i - 1], z[i + 1]), method="bounded", options={"xatol": 1e-10})
+            refined = -sign * float(res.fun)
+            if res.success and sign * refined > sign * best_T:
+                best_T, best_z = refined, float(res.x)
+        return best_T, best_z
+
+    def max_temperature(self) -> float:
+        return self.temperature_extreme("max")[0]
 
     def min_temperature(self) -> float:
+        return self.temperature_extreme("min")[0]
+
+    def typical_sizes(self, floor_share: float = 1e-9) -> dict:
+        """Typical size of each species' scaled flow: its largest value along the reactor (or over the tanks),
+        floored at `floor_share` of the total inlet (a species that never forms keeps a scale that its first trace
+        can reach). The collocation models divide their states by these."""
+        total = sum(abs(v) for v in self.u_in.values()) or 1.0
+        floor = floor_share * total
         if self.tanks:
-            return min(t["T"] for t in self.tanks)
-        z = np.linspace(0, 1, 401)
-        return float(np.min(self.states_at(z)["T"]))
+            return {s: max(max(abs(t.flows[s]) for t in self.tanks), abs(self.u_in[s]), floor)
+                    for s in self.study.symbols}
+        flows = self.states_at(np.linspace(0.0, 1.0, 201)).flows
+        return {s: max(float(np.max(np.abs(flows[s]))), abs(self.u_in[s]), floor) for s in self.study.symbols}
 
     # ------------------------------------------------------------------------------------------------ profiles
 
-    def states_at(self, z: np.ndarray) -> dict:
+    def states_at(self, z: np.ndarray) -> States:
         """Scaled flows and T (K) at positions z (plug flow), one dense-output call per segment."""
         symbols = self.study.symbols
         z = np.asarray(z, dtype=float)
-        out = {s: np.empty(len(z)) for s in symbols}
-        out["T"] = np.empty(len(z))
+        flows = {s: np.empty(len(z)) for s in symbols}
+        T = np.empty(len(z))
         starts = [seg[0] for seg in self.segments]
         which = np.clip(np.searchsorted(starts, z - 1e-12, side="left") - 1, 0, len(self.segments) - 1)
         for k in np.unique(which):
@@ -157,25 +192,25 @@ class Simulation:
             zk = np.clip(z[idx], z0, z1)
             y = sol.sol(zk)
             for n, s in enumerate(symbols):
-                out[s][idx] = y[n]
-            out["T"][idx] = y[len(symbols)] if T_fun is None else [T_fun(v) for v in zk]
-        return out
+                flows[s][idx] = y[n]
+            T[idx] = y[len(symbols)] if T_fun is None else [T_fun(v) for v in zk]
+        return States(flows, T)
 
-    def derivatives_at(self, z: np.ndarray) -> dict:
+    def derivatives_at(self, z: np.ndarray) -> States:
         """d(state)/dz at positions z, from the simulation's own right-hand side (to start the collocation model)."""
         states = self.states_at(z)
         symbols = self.study.symbols
         energy = self.study.reactor.heat in ("adiabatic", "cooled")
-        out = {s: np.empty(len(z)) for s in symbols}
-        out["T"] = np.zeros(len(z))
+        flows = {s: np.empty(len(z)) for s in symbols}
+        dT = np.zeros(len(z))
         for i, zi in enumerate(z):
-            y = np.array([states[s][i] for s in symbols] + ([states["T"][i]] if energy else []))
+            y = np.array([states.flows[s][i] for s in symbols] + ([states.T[i]] if energy else []))
             dy = self.rhs(float(zi), y)
             for n, s in enumerate(symbols):
-                out[s][i] = dy[n]
+                flows[s][i] = dy[n]
             if energy:
-                out["T"][i] = dy[len(symbols)]
-        return out
+                dT[i] = dy[len(symbols)]
+        return States(flows, dT)
 
     def profile(self, n: int = 201):
         import pandas as pd
@@ -184,14 +219,14 @@ class Simulation:
         if self.tanks:
             rows = []
             for k, tank in enumerate(self.tanks, 1):
-                conc = concentrations(st, tank, tank["T"], self.c_s, self.par)
-                rows.append({"tank": k, "residence_time_s": k * tau / len(self.tanks), "T_K": tank["T"],
+                conc = concentrations(st, tank.flows, tank.T, self.c_s, self.par)
+                rows.append({"tank": k, "residence_time_s": k * tau / len(self.tanks), "T_K": tank.T,
                              **{f"C_{s}_mol_per_m3": conc[s] for s in st.symbols}})
             return pd.DataFrame(rows)
         z = np.linspace(0.0, 1.0, n)
         states = self.states_at(z)
-        conc = concentrations(st, {s: states[s] for s in st.symbols}, states["T"], self.c_s, self.par)
-        data = {"z": z, "residence_time_s": z * tau, "volume_m3": z * tau * st.feed.flow, "T_K": states["T"]}
+        conc = concentrations(st, states.flows, states.T, self.c_s, self.par)
+        data = {"z": z, "residence_time_s": z * tau, "volume_m3": z * tau * st.feed.flow, "T_K": states.T}
         data.update({f"C_{s}_mol_per_m3": np.broadcast_to(conc[s], z.shape) for s in st.symbols})
         return pd.DataFrame(data)
 
@@ -341,7 +376,7 @@ def _tanks(sim: Simulation, kin: Kinetics, T_fun, T_in, guess) -> None:
             return np.array(res, dtype=float)
 
         if guess is not None:
-            x0 = [guess[k][s] for s in symbols] + ([guess[k]["T"]] if energy else [])
+            x0 = [guess[k].flows[s] for s in symbols] + ([guess[k].T] if energy else [])
         else:
             x0 = [prev[s] for s in symbols] + ([prev_T] if energy else [])
         sol = root(residual, np.array(x0, dtype=float), method="hybr", tol=1e-14)
@@ -349,8 +384,7 @@ def _tanks(sim: Simulation, kin: Kinetics, T_fun, T_in, guess) -> None:
             sol = root(residual, sol.x, method="lm", tol=1e-14)
         if np.max(np.abs(residual(sol.x))) > 1e-8:
             raise RuntimeError(f"reference tank solve failed in tank {k + 1}: {sol.message}")
-        tank = {s: float(sol.x[i]) for i, s in enumerate(symbols)}
-        tank["T"] = float(sol.x[n]) if energy else float(T_fun)
+        tank = States({s: float(sol.x[i]) for i, s in enumerate(symbols)}, float(sol.x[n]) if energy else float(T_fun))
         sim.tanks.append(tank)
-        prev, prev_T = {s: tank[s] for s in symbols}, tank["T"]
+        prev, prev_T = dict(tank.flows), tank.T
     sim.integrator = "scipy optimize.root (MINPACK hybrid), residual <= 1e-9"

@@ -79,21 +79,19 @@ class StirredModel(ReactorModel):
     def temperature_function(self):
         return None
 
-    def tank_states(self) -> list[dict]:
-        out = []
-        for k in range(1, self.n_tanks + 1):
-            tank = {s: float(pyo.value(self.m.u[s, k])) * self.state_scale[s] for s in self.study.symbols}
-            tank["T"] = float(pyo.value(self._theta(k))) * self.T_scale
-            out.append(tank)
-        return out
+    def tank_states(self) -> list:
+        from tubeyield.reactor.simulate import States
+        return [States({s: float(pyo.value(self.m.u[s, k])) * self.state_scale[s] for s in self.study.symbols},
+                       float(pyo.value(self._theta(k))) * self.T_scale) for k in range(1, self.n_tanks + 1)]
 
     def initialize(self, sim) -> None:
         m = self.m
         for k in range(1, self.n_tanks + 1):
             for s in self.study.symbols:
-                m.u[s, k].set_value(max(float(sim.tanks[k - 1][s]), 0.0) / self.state_scale[s], skip_validation=True)
+                m.u[s, k].set_value(max(float(sim.tanks[k - 1].flows[s]), 0.0) / self.state_scale[s],
+                                    skip_validation=True)
             if self.study.reactor.heat in ("adiabatic", "cooled"):
-                m.theta[k].set_value(sim.tanks[k - 1]["T"] / self.T_scale, skip_validation=True)
+                m.theta[k].set_value(sim.tanks[k - 1].T / self.T_scale, skip_validation=True)
 
     def profile(self):
         import pandas as pd
