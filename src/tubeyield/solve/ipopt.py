@@ -361,6 +361,9 @@ def _build(written: _Written, pinned_mask: np.ndarray, opts: dict, tee: bool) ->
     ipopt_opts.setdefault("sb", "yes")
     try:
         solver = casadi.nlpsol("tubeyield", "ipopt", nlp, {"expand": True, "print_time": False, "error_on_fail": False,
+                                                          # evaluation errors (a NaN at a trial point) are
+                                                          # handled by Ipopt's line search: not for the terminal
+                                                          "show_eval_warnings": bool(tee),
                                                           "ipopt": ipopt_opts})
     except RuntimeError as exc:
         raise SolverOptionRefused(f"{NAME}: Ipopt refused an option ({str(exc).splitlines()[-1]})") from None
