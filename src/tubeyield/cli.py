@@ -1,7 +1,8 @@
 """The command line: `tubeyield <job> STUDY ...`. Prints readable tables, or JSON with --json.
 
-Exit codes: 0 done, 2 a mistake in the study or the command (one line on stderr, no traceback), 3 the study is
-infeasible (no operating point meets every limit), 1 the computation failed.
+Exit codes (tubeyield.status): 0 done, 2 a mistake in the study or the command (one line on stderr, no traceback),
+3 the study is infeasible (no operating point meets every limit), 4 a result that did not pass its own verification
+(shown, flagged, never called optimal), 1 the computation failed.
 """
 
 from __future__ import annotations
@@ -12,8 +13,7 @@ import sys
 
 from tubeyield import __version__
 from tubeyield.errors import SolverOptionRefused, SolverUnavailable, StudyError
-
-EXIT_OK, EXIT_FAILED, EXIT_USER, EXIT_INFEASIBLE = 0, 1, 2, 3
+from tubeyield.status import EXIT_FAILED, EXIT_OK, EXIT_USER, SOLVED, exit_code
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -181,9 +181,7 @@ def _optimize(args) -> int:
         _print_json(result.to_dict())
     else:
         print(optimum_summary(result))
-    if result.status == "infeasible":
-        return EXIT_INFEASIBLE
-    return EXIT_OK if result.status == "optimal" else EXIT_FAILED
+    return exit_code(result.status)
 
 
 def _simulate(args) -> int:
@@ -226,9 +224,7 @@ def _front(args) -> int:
     else:
         from tubeyield.report.text import front_summary
         print(front_summary(result))
-    if result.status in ("infeasible",):
-        return EXIT_INFEASIBLE
-    return EXIT_OK if result.status in ("done", "single point") else EXIT_FAILED
+    return exit_code(result.status)
 
 
 def _window(args) -> int:
@@ -253,7 +249,7 @@ def _window(args) -> int:
         res = optimize(study)
         base, status = res.decisions_si, res.status
     optimum = None
-    if status == "optimal":
+    if status in SOLVED:
         dx, dy = study.decision(study.window.x), study.decision(study.window.y)
         from tubeyield.study.units import convert
         optimum = {"x": convert(base[dx.name], dx.si_unit, dx.unit) if dx.unit else base[dx.name],

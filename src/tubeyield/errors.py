@@ -34,3 +34,8 @@ class SolverUnavailable(Exception):
 
 class SolverOptionRefused(SolverUnavailable):
     """Ipopt does not know an option or refuses its value: a mistake in the study's numerics.ipopt."""
+
+
+class SimulationFailed(Exception):
+    """The reference simulation could not integrate (or solve) the balances at an operating point: a numerical
+    outcome of that point, not a programming error (those propagate as themselves)."""

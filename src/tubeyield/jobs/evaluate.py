@@ -56,7 +56,7 @@ def evaluate(study: Study, values: dict) -> Result:
     t0 = time.perf_counter()
     sim = simulate(study, values)
     metrics = {}
-    from tubeyield.jobs.optimize import metric_display
+    from tubeyield.reactor.metrics import metric_display
     for met in all_metrics(study):
         v, unit = metric_display(met, sim.metric(met))
         metrics[met.text] = {"value": v, "unit": unit}

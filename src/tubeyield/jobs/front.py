@@ -27,14 +27,17 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from tubeyield import __version__
-from tubeyield.jobs.optimize import SAME_OPTIMUM, _user_decisions, metric_display, optimize, prepare
+from tubeyield import status as st
+from tubeyield.jobs.optimize import SAME_OPTIMUM, optimize
+from tubeyield.jobs.problem import prepare
 from tubeyield.jobs.result import Result, _finite
-from tubeyield.reactor.metrics import all_metrics
+from tubeyield.reactor.metrics import all_metrics, metric_display
 from tubeyield.reactor.verify import compare, reference
 from tubeyield.solve import OK_CONDITIONS, make_solver
 from tubeyield.solve.marginals import bound_reports, limit_reports
 from tubeyield.study.metric import Metric
 from tubeyield.study.schema import Study
+from tubeyield.study.units import decisions_to_user
 
 LEVEL = "front_level"
 
@@ -46,7 +49,7 @@ class FrontResult:
     y: str
     x_sense: str
     y_sense: str
-    status: str                      # done | infeasible | failed | single point
+    status: str                      # done | partial | infeasible | failed | single point (tubeyield.status)
     points: list                     # every level: dict with level, status, x, y, decisions, metrics, ...
     ends: dict                       # {"y_optimum": Result dict, "x_optimum": Result dict}
     knee: int | None = None          # index into points
@@ -54,7 +57,7 @@ class FrontResult:
     message: str = ""
 
     def front_points(self) -> list:
-        return [p for p in self.points if p["status"] == "optimal" and not p["dominated"]]
+        return [p for p in self.points if p["status"] in st.SOLVED and not p["dominated"]]
 
     def to_dict(self) -> dict:
         return _finite({"tool": f"tubeyield {__version__}", "study": self.study, "x": self.x, "y": self.y,
@@ -109,13 +112,13 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
     free_level = -1e6 if xs == "max" else 1e6
     model.add_level(LEVEL, spec.x, ">=" if xs == "max" else "<=", free_level * (x_scale or 1.0), x_scale or 1.0)
     y_opt = optimize(fstudy, solver=solver, model=model, screened=screened)
-    y_snapshot = model.snapshot() if y_opt.status == "optimal" else None
+    y_snapshot = model.snapshot() if y_opt.status in USABLE_ENDS else None
     x_opt = optimize(xstudy, solver=solver, screened=screened)
     timing["ends"] = time.perf_counter() - t
     ends = {"y_optimum": y_opt.to_dict(), "x_optimum": x_opt.to_dict()}
-    result = FrontResult(study.name, spec.x.text, spec.y.text, xs, ys, "done", [], ends, timing=timing)
-    if y_opt.status != "optimal" or x_opt.status != "optimal":
-        bad = y_opt if y_opt.status != "optimal" else x_opt
+    result = FrontResult(study.name, spec.x.text, spec.y.text, xs, ys, st.DONE, [], ends, timing=timing)
+    if y_opt.status not in USABLE_ENDS or x_opt.status not in USABLE_ENDS:
+        bad = y_opt if y_opt.status not in USABLE_ENDS else x_opt
         result.status = bad.status
         result.message = f"the single-metric optimum failed: {bad.message}"
         return result
@@ -125,18 +128,19 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
     x_end = x_opt.metrics[spec.x.text]["value"] / _display_factor(spec.x)
     sign = 1.0 if xs == "max" else -1.0
     if sign * (x_end - x_start) <= SAME_OPTIMUM * max(abs(x_start), abs(x_end)):
-        result.status = "single point"
+        result.status = st.SINGLE_POINT if y_opt.status == st.OPTIMAL else st.PARTIAL
         result.message = (f"no trade-off: the optimum of {spec.y.text} is also the optimum of {spec.x.text}")
         result.points = [_point_from_result(y_opt, spec, y_opt.metrics[spec.x.text]["value"])]
         result.knee = 0
         return result
 
     t = time.perf_counter()
-    elements = max(y_opt.check.elements, x_opt.check.elements)
-    if elements != model.elements or x_scale is None:
+    mesh = _finest_mesh(model, y_opt, x_opt)
+    if mesh is not None or x_scale is None:
         # the ends needed a finer mesh (or the x metric needs its own scale): a front model to match
         x_scale = x_scale or max(abs(x_start), abs(x_end), 1e-300)
-        model = prepare(fstudy, elements, scale_hint=y_opt.goal["value"] / _display_factor(spec.y))
+        model = prepare(fstudy, mesh if mesh is not None else model.mesh,
+                        scale_hint=y_opt.goal["value"] / _display_factor(spec.y))
         model.add_level(LEVEL, spec.x, ">=" if xs == "max" else "<=", x_start, x_scale)
         _start_from(model, study, y_opt.decisions_si)
         y_snapshot = None
@@ -144,47 +148,91 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
         model.restore(y_snapshot)
     timing["build"] = time.perf_counter() - t
 
+    # The levels stay inside the attainable range: x_end is itself an optimum found to solver tolerance (on the ends'
+    # own mesh), so the last level sits a little inside it; a level that still fails is retried from its neighbour,
+    # then moved inwards, and the x-end's own optimum closes the front if even that fails.
     levels = np.linspace(x_start, x_end, n)
-    # Nudge the last level inside the attainable range: x_end is itself an optimum found to solver tolerance.
-    levels[-1] = x_end - sign * 1e-9 * max(1.0, abs(x_end))
+    levels[-1] = x_end - sign * END_INSET * max(abs(x_end - x_start), 1e-300)
     t = time.perf_counter()
     previous = None
     for i, level in enumerate(levels):
-        model.set_level(LEVEL, float(level))
-        # The first level starts cold from the y-end's primal point: there the level constraint was slack by
-        # about 1e6, and a warm start through that jump stopped 3e-6 short of the optimum (measured against a cold
-        # solve and the casadi baseline). Neighbouring levels are warm-started.
-        res = solver.solve(model.m, options=options, reuse_structure=True, warmstart=previous is not None)
-        ok = res.solver.termination_condition in OK_CONDITIONS
-        if not ok and previous is not None:
-            # continuation failed: back to the last good point and a cold start
-            model.restore(previous)
-            _start_from(model, study, model.decision_values())
-            res = solver.solve(model.m, options=options, reuse_structure=True)
-            ok = res.solver.termination_condition in OK_CONDITIONS
-        if ok:
+        point = _level_point(model, study, spec, float(level), solver, options, previous)
+        if point is None and i == len(levels) - 1:
+            for inset in (1e-4, 1e-2):
+                inner = x_end - sign * inset * abs(x_end - x_start)
+                point = _level_point(model, study, spec, float(inner), solver, options, previous)
+                if point is not None:
+                    break
+            if point is None and x_opt.status == st.OPTIMAL:
+                point = _point_from_result(x_opt, spec, x_opt.metrics[spec.x.text]["value"])
+                point["note"] = "the x-end's own optimum (the last level could not be solved on the front model)"
+        if point is not None:
             previous = model.snapshot()
-            result.points.append(_point(model, study, spec, float(level), solver))
+            result.points.append(point)
         else:
-            result.points.append({"level": float(level), "status": "infeasible", "x": None, "y": None,
-                                  "trade_off": None, "decisions": {}, "metrics": {}, "active": [], "check": None,
-                                  "dominated": False, "iterations": solver.last_stats.get("iterations")})
+            result.points.append({"level": metric_display(spec.x, float(level))[0], "status": st.FAILED, "x": None,
+                                  "y": None, "trade_off": None, "decisions": {}, "metrics": {}, "active": [],
+                                  "check": None, "dominated": False,
+                                  "iterations": solver.last_stats.get("iterations")})
             if previous is not None:
                 model.restore(previous)
     timing["points"] = time.perf_counter() - t
-    if result.points and result.points[-1]["status"] == "optimal":
+    if result.points and result.points[-1]["status"] == st.OPTIMAL:
         # At the x-end the feasible set shrinks to a point: the front ends steeply and the multipliers there are
         # ill-determined (measured: -5 in one run, -640 in another), so no slope is reported.
         result.points[-1]["trade_off"] = None
     _mark_dominated(result.points, xs, ys)
     result.knee = _knee(result.points, xs, ys)
-    n_bad = sum(p["status"] != "optimal" for p in result.points)
-    if n_bad:
-        result.message = f"{n_bad} of {len(result.points)} levels could not be met"
-    if n_bad == len(result.points):
-        result.status = "failed"
+    n_failed = sum(p["status"] == st.FAILED for p in result.points)
+    n_unverified = sum(p["status"] == st.UNVERIFIED for p in result.points)
+    notes = []
+    if n_failed:
+        notes.append(f"{n_failed} of {len(result.points)} levels could not be solved")
+    if n_unverified:
+        notes.append(f"{n_unverified} of {len(result.points)} points did NOT pass their verification")
+    if st.UNVERIFIED in (y_opt.status, x_opt.status):
+        notes.append("an end of the front did NOT pass its verification")
+    result.message = "; ".join(notes)
+    if n_failed == len(result.points):
+        result.status = st.FAILED
+    elif notes:
+        result.status = st.PARTIAL
     timing["total"] = time.perf_counter() - t0
     return result
+
+
+END_INSET = 1e-6     # the last level's distance inside the x-end, as a share of the front's x range
+USABLE_ENDS = (st.OPTIMAL, st.UNVERIFIED)
+
+
+def _finest_mesh(model, *ends):
+    """The edges of the finest mesh the ends were verified on, when it is not the model's own; else None."""
+    meshes = [r.check.edges for r in ends if r.check is not None and r.check.edges is not None]
+    if not meshes or model.edges is None:
+        return None
+    finest = max(meshes, key=len)
+    return None if len(finest) == len(model.edges) and np.allclose(finest, model.edges) else finest
+
+
+def _level_point(model, study: Study, spec, level: float, solver, options, previous) -> dict | None:
+    """The front point at one level: warm from the previous point, or from its neighbour again cold; None if both
+    fail."""
+    model.set_level(LEVEL, level)
+    # The first level starts cold from the y-end's primal point: there the level constraint was slack by about 1e6,
+    # and a warm start through that jump stopped 3e-6 short of the optimum (measured against a cold solve and the
+    # casadi baseline). Neighbouring levels are warm-started.
+    res = solver.solve(model.m, options=options, reuse_structure=True, warmstart=previous is not None)
+    ok = res.solver.termination_condition in OK_CONDITIONS
+    if not ok and previous is not None:
+        model.restore(previous)
+        _start_from(model, study, model.decision_values())
+        res = solver.solve(model.m, options=options, reuse_structure=True)
+        ok = res.solver.termination_condition in OK_CONDITIONS
+    if not ok:
+        if previous is not None:
+            model.restore(previous)
+        return None
+    return _point(model, study, spec, level, solver)
 
 
 def _start_from(model, study: Study, decisions: dict) -> None:
@@ -218,9 +266,10 @@ def _point(model, study: Study, spec, level: float, solver) -> dict:
     active = [r.text for r in limit_reports(model) if r.active]
     active += [f"{b.decision} at {b.side} bound" for b in bound_reports(model) if b.side in ("low", "high")]
     check = compare(model, reference(model), study.numerics.check_tolerance)
-    return {"level": metric_display(spec.x, level)[0], "status": "optimal", "x": x, "y": y, "trade_off": dy_dx,
-            "decisions": _user_decisions(study, values), "metrics": metrics, "active": active,
-            "check": check.max_rel_error, "dominated": False, "iterations": solver.last_stats.get("iterations")}
+    return {"level": metric_display(spec.x, level)[0], "status": st.OPTIMAL if check.passed else st.UNVERIFIED,
+            "x": x, "y": y, "trade_off": dy_dx, "decisions": decisions_to_user(study, values), "metrics": metrics,
+            "active": active, "check": check.max_rel_error, "dominated": False,
+            "iterations": solver.last_stats.get("iterations")}
 
 
 def _display_factor(metric: Metric) -> float:
@@ -228,7 +277,7 @@ def _display_factor(metric: Metric) -> float:
 
 
 def _point_from_result(r: Result, spec, level: float) -> dict:
-    return {"level": level, "status": "optimal", "x": r.metrics[spec.x.text]["value"],
+    return {"level": level, "status": r.status, "x": r.metrics[spec.x.text]["value"],
             "y": r.metrics[spec.y.text]["value"], "trade_off": 0.0,
             "decisions": {k: v["value"] for k, v in r.decisions.items()},
             "metrics": {k: v["value"] for k, v in r.metrics.items()},
@@ -240,7 +289,7 @@ def _mark_dominated(points: list, xs: str, ys: str, tol: float = 1e-9) -> None:
     """A point is dominated when another is at least as good in both metrics and better in one."""
     sx = 1.0 if xs == "max" else -1.0
     sy = 1.0 if ys == "max" else -1.0
-    good = [p for p in points if p["status"] == "optimal"]
+    good = [p for p in points if p["status"] in st.SOLVED]
     for p in good:
         for q in good:
             if q is p:
@@ -254,7 +303,7 @@ def _mark_dominated(points: list, xs: str, ys: str, tol: float = 1e-9) -> None:
 
 def _knee(points: list, xs: str, ys: str) -> int | None:
     """Index of the non-dominated point farthest from the chord between the ends, in coordinates scaled to [0, 1]."""
-    idx = [i for i, p in enumerate(points) if p["status"] == "optimal" and not p["dominated"]]
+    idx = [i for i, p in enumerate(points) if p["status"] in st.SOLVED and not p["dominated"]]
     if len(idx) < 3:
         return idx[0] if idx else None
     x = np.array([points[i]["x"] for i in idx])

@@ -6,26 +6,7 @@ import math
 from dataclasses import dataclass, field
 
 from tubeyield import __version__
-
-
-@dataclass
-class Check:
-    """Re-simulation of the optimum with the reference integrator."""
-    max_rel_error: float
-    worst_species: str
-    tolerance: float
-    elements: int
-    integrator: str
-    refinements: int = 0
-
-    @property
-    def passed(self) -> bool:
-        return self.max_rel_error <= self.tolerance
-
-    def to_dict(self):
-        return {"max_rel_error": self.max_rel_error, "worst_species": self.worst_species, "tolerance": self.tolerance,
-                "passed": self.passed, "elements": self.elements, "integrator": self.integrator,
-                "refinements": self.refinements}
+from tubeyield.reactor.verify import Check
 
 
 @dataclass

@@ -47,7 +47,7 @@ def _state(study: Study) -> _WorkerState:
         cache = _local.states = {}
     key = study_fingerprint(study)
     if key not in cache:
-        from tubeyield.jobs.optimize import prepare
+        from tubeyield.jobs.problem import prepare
         from tubeyield.solve import make_solver
         cache[key] = _WorkerState(prepare(study), make_solver(study.numerics), [])
     return cache[key]
@@ -131,7 +131,7 @@ def _remember(state: _WorkerState, vec, model) -> None:
 
 
 def _row_from_model(sc: Study, model, check, iterations) -> dict:
-    from tubeyield.jobs.optimize import metric_display
+    from tubeyield.reactor.metrics import metric_display
     from tubeyield.reactor.metrics import all_metrics
     from tubeyield.solve.marginals import limit_reports
     metrics = {m.text: metric_display(m, model.metric_value(m))[0] for m in all_metrics(sc)}

@@ -23,7 +23,7 @@ from pathlib import Path
 
 import numpy as np
 
-from tubeyield.errors import StudyError
+from tubeyield.errors import SimulationFailed, StudyError
 from tubeyield.jobs.scenario import apply_values
 from tubeyield.jobs.store import open_existing
 from tubeyield.study.schema import Study
@@ -66,7 +66,7 @@ def _user(study: Study, name: str, v):
 
 def _evaluate_candidate(args):
     """Simulate one point in each of the given scenarios: [(goal, every limit holds, [limit quantities, SI])]."""
-    from tubeyield.jobs.optimize import metric_display
+    from tubeyield.reactor.metrics import metric_display
     from tubeyield.reactor.simulate import simulate
     from tubeyield.solve.multistart import violation
     study, point, scenario_values = args
@@ -79,7 +79,7 @@ def _evaluate_candidate(args):
                       else sim.metric(lim.metric) for lim in sc.goal.limits]
             goal = metric_display(sc.goal.metric, sim.metric(sc.goal.metric))[0]
             out.append((goal, violation(sc, sim) <= 1e-9, limits))
-        except Exception:  # a scenario where the point cannot be simulated counts as missing the limits
+        except (SimulationFailed, ArithmeticError):  # a point that cannot be simulated misses the limits
             out.append((float("nan"), False, [float("nan")] * len(study.goal.limits)))
     return out
 

@@ -22,6 +22,7 @@ import numpy as np
 
 from tubeyield import __version__
 from tubeyield.jobs.result import _finite
+from tubeyield.errors import SimulationFailed
 from tubeyield.reactor.simulate import simulate
 from tubeyield.study.schema import Study
 from tubeyield.study.units import convert
@@ -79,7 +80,7 @@ def axis_values(study: Study, name: str, n: int) -> np.ndarray:
 
 def _quantities(study: Study, sim) -> dict:
     """Goal and limit quantities of one simulated point, in display units (limit quantities in the bound's unit)."""
-    from tubeyield.jobs.optimize import metric_display
+    from tubeyield.reactor.metrics import metric_display
     out = {study.goal.metric.text: metric_display(study.goal.metric, sim.metric(study.goal.metric))[0]}
     for lim in study.goal.limits:
         if lim.metric is None:
@@ -152,7 +153,7 @@ def _tau_axis_shortcut(study: Study, spec) -> bool:
 
 def _tau_rows(study: Study, base: dict, xs, ys, spec):
     """One integration per value of the other axis; every residence time read off its dense solution at once."""
-    from tubeyield.jobs.optimize import metric_display
+    from tubeyield.reactor.metrics import metric_display
     from tubeyield.reactor.balances import concentrations
     from tubeyield.reactor.metrics import metric_value
     tau_on_x = spec.x == "tau"
@@ -197,7 +198,7 @@ def _cell(args):
     study, point = args
     try:
         return _quantities(study, simulate(study, point, rtol=WINDOW_RTOL))
-    except Exception:       # a cell where the model cannot be integrated is left blank, not fatal
+    except (SimulationFailed, ArithmeticError):   # a cell where the model cannot be evaluated is left blank
         return {}
 
 
@@ -224,7 +225,7 @@ def _all_cells(study: Study, base: dict, xs, ys, workers):
 
 def _optimized_cells(study: Study, base: dict, xs, ys):
     """Others re-optimized in every cell: one NLP per cell with the two axes pinned, warm-started along rows."""
-    from tubeyield.jobs.optimize import prepare
+    from tubeyield.jobs.problem import prepare
     from tubeyield.solve import OK_CONDITIONS, make_solver
     spec = study.window
     solver = make_solver(study.numerics)

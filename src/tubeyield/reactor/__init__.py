@@ -27,15 +27,16 @@ def state_scales(sim, floor_share: float = 1e-9) -> dict:
     return sim.typical_sizes(floor_share)
 
 
-def build(study: Study, elements: int | None = None, state_scale: dict | None = None) -> ReactorModel:
+def build(study: Study, mesh=None, state_scale: dict | None = None) -> ReactorModel:
     """The collocation (plug) or algebraic (stirred) model of `study`, with decisions at their mid-range values.
-    `state_scale` divides each species' scaled flow (see `state_scales`); default 1."""
+    `mesh` is a number of elements or a list of element edges on [0, 1] (plug flow; default the study's
+    elements); `state_scale` divides each species' scaled flow (see `state_scales`); default 1."""
     with paused_gc():
         if study.reactor.kind == "plug":
             from tubeyield.reactor.plug import PlugModel
-            return PlugModel(study, elements, state_scale)
+            return PlugModel(study, mesh, state_scale)
         from tubeyield.reactor.stirred import StirredModel
-        return StirredModel(study, elements, state_scale)
+        return StirredModel(study, mesh, state_scale)
 
 
 __all__ = ["ReactorModel", "build", "paused_gc", "state_scales"]

@@ -5,9 +5,16 @@ from __future__ import annotations
 from tubeyield.chemistry.network import yield_factor
 from tubeyield.study.metric import Metric
 from tubeyield.study.schema import Study
+from tubeyield.study.units import convert
 
 # Units shown to users for metrics that have one (SI inside).
 DISPLAY_UNIT = {"outlet": "mol/L", "productivity": "mol/(L*h)"}
+
+
+def metric_display(metric: Metric, value_si: float) -> tuple[float, str]:
+    """A metric's SI value in the unit shown to users, and that unit ('' for fractions)."""
+    unit = DISPLAY_UNIT.get(metric.kind, "")
+    return (convert(value_si, metric.si_unit, unit) if unit else value_si), unit
 
 
 def metric_value(study: Study, metric: Metric, u_out: dict, u_in: dict, tau, c_s, conc_out: dict):

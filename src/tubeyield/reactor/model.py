@@ -83,9 +83,12 @@ class ReactorModel:
 
     kind = "base"
 
-    def __init__(self, study: Study, elements: int | None = None, state_scale: dict | None = None):
+    def __init__(self, study: Study, mesh=None, state_scale: dict | None = None):
         self.study = study
-        self.elements = elements or study.reactor.elements
+        # the mesh: a number of elements (the study's starting mesh with that many) or the element edges themselves
+        self.mesh = study.reactor.elements if mesh is None else mesh
+        self.elements = self.mesh if isinstance(self.mesh, int) else len(self.mesh) - 1
+        self.edges = None
         # Each species' scaled flow is divided by its own typical size (from a simulation at the start), so that
         # fast intermediates at quasi-steady levels of 1e-8 are order one to Ipopt, like everything else.
         self.state_scale = {s: 1.0 for s in study.symbols}

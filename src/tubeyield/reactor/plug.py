@@ -22,20 +22,8 @@ import pyomo.dae as dae
 import pyomo.environ as pyo
 
 from tubeyield.reactor.balances import concentrations, math_for, wall_term
+from tubeyield.reactor.mesh import breakpoints, initial_edges
 from tubeyield.reactor.model import T_STATE_BOUNDS, Handle, ReactorModel
-
-
-def element_edges(n: int, grading: float = 1.0) -> list[float]:
-    """n element boundaries on [0, 1]; with grading g the lengths grow geometrically so that last/first = g."""
-    if n == 1:
-        return [0.0, 1.0]
-    if abs(grading - 1.0) < 1e-12:
-        return [i / n for i in range(n)] + [1.0]
-    q = grading ** (1.0 / (n - 1))
-    lengths = q ** np.arange(n)
-    edges = np.concatenate([[0.0], np.cumsum(lengths) / lengths.sum()])
-    edges[-1] = 1.0
-    return edges.tolist()
 
 
 class PlugModel(ReactorModel):
@@ -46,7 +34,15 @@ class PlugModel(ReactorModel):
         rx = st.reactor
         heat = rx.heat
         symbols = st.symbols
-        self.edges = element_edges(self.elements, rx.grading)
+        zones = rx.zones if heat == "zones" else 1
+        if isinstance(self.mesh, int):
+            self.edges = initial_edges(self.mesh, rx.grading, zones)
+        else:
+            self.edges = [float(e) for e in self.mesh]
+            missing = [b for b in breakpoints(zones) if not any(abs(b - e) < 1e-12 for e in self.edges)]
+            if missing:
+                raise ValueError(f"a mesh for {zones} zones must have edges at {missing}")
+        self.elements = len(self.edges) - 1
         m.z = dae.ContinuousSet(bounds=(0.0, 1.0), initialize=self.edges)
         m.S = pyo.Set(initialize=symbols, ordered=True)
         m.J = pyo.Set(initialize=[r.id for r in st.reactions], ordered=True)
@@ -129,8 +125,10 @@ class PlugModel(ReactorModel):
         return min(max(k, 0), len(self.edges) - 2)
 
     def zone_of(self, z: float) -> int:
-        per_zone = (len(self.edges) - 1) // self.study.reactor.zones
-        return self.element_of(z) // per_zone + 1
+        """1-based zone of the element holding z (zones are whole elements)."""
+        k = self.element_of(z)
+        middle = 0.5 * (self.edges[k] + self.edges[k + 1])
+        return min(int(middle * self.study.reactor.zones) + 1, self.study.reactor.zones)
 
     def theta_at(self, z):
         m, heat = self.m, self.study.reactor.heat
@@ -148,13 +146,31 @@ class PlugModel(ReactorModel):
         heat = self.study.reactor.heat
         if heat == "zones":
             zones = self.study.reactor.zones
-            per = (len(self.edges) - 1) // zones
-            edges = [self.edges[k * per] for k in range(zones)] + [1.0]
-            return PiecewiseConstant(edges, [pyo.value(self.m.Tz[k]) * self.T_scale for k in range(1, zones + 1)])
+            return PiecewiseConstant(breakpoints(zones),
+                                     [pyo.value(self.m.Tz[k]) * self.T_scale for k in range(1, zones + 1)])
         if heat == "free":
             return CollocationProfile(self.edges, self.study.reactor.points,
                                       [pyo.value(self.m.Tp[z]) * self.T_scale for z in self.inner])
         return None
+
+    def element_errors(self, sim, floor: float = 0.0) -> np.ndarray:
+        """Local error estimate of each element (reactor.mesh.element_errors) against the balances of `sim`, the
+        reference simulation at the model's decisions. States are relative to their typical sizes, floored at
+        `floor` (the check's absolute floor, as a scaled flow)."""
+        from tubeyield.reactor.mesh import element_errors
+        m, st = self.m, self.study
+        K = st.reactor.points
+        energy = st.reactor.heat in ("adiabatic", "cooled")
+        rows = []
+        for z in self.points:
+            row = [pyo.value(m.u[s, z]) * self.state_scale[s] for s in st.symbols]
+            if energy:
+                row.append(pyo.value(m.theta[z]) * self.T_scale)
+            rows.append(row)
+        values = np.array(rows, dtype=float)
+        nodes = np.stack([values[k * K:k * K + K + 1] for k in range(self.elements)])
+        scales = np.array([max(self.state_scale[s], floor) for s in st.symbols] + ([self.T_scale] if energy else []))
+        return element_errors(self.edges, nodes, sim.rhs, scales, K)
 
     # ---------------------------------------------------------------------------------------------- initialization
 

@@ -20,12 +20,16 @@ import numpy as np
 from scipy.integrate import solve_ivp
 from scipy.optimize import root
 
+from tubeyield.errors import SimulationFailed
 from tubeyield.reactor.balances import concentration_scale, concentrations, inlet, wall_term
 from tubeyield.reactor.kinetics import Kinetics
+from tubeyield.reactor.mesh import radau_roots
 from tubeyield.reactor.metrics import metric_value
 from tubeyield.reactor.parameters import study_parameters
 from tubeyield.study.metric import Metric
 from tubeyield.study.schema import Study
+
+__all__ = ["CollocationProfile", "PiecewiseConstant", "Simulation", "SimulationFailed", "States", "simulate"]
 
 RTOL = 1e-10
 ATOL = 1e-14
@@ -55,7 +59,7 @@ class CollocationProfile:
     values: list          # ncp values per element, element by element
 
     def __post_init__(self):
-        object.__setattr__(self, "_roots", np.array(_radau(self.points)))
+        object.__setattr__(self, "_roots", radau_roots(self.points))
 
     def __call__(self, z):
         k = min(max(bisect.bisect_left(self.edges, z - 1e-12) - 1, 0), len(self.edges) - 2)
@@ -76,18 +80,6 @@ class CollocationProfile:
 
     def segments(self):
         return list(zip(self.edges[:-1], self.edges[1:]))
-
-
-def _radau(n: int) -> list[float]:
-    """Radau IIA collocation points on (0, 1] (right end included): roots of P_n - P_{n-1} shifted, as pyomo.dae."""
-    from numpy.polynomial import legendre
-    if n == 1:
-        return [1.0]
-    # Right Radau points: zeros of P_{n-1}(x) - P_n(x) on [-1, 1] with x = 1 included, mapped to (0, 1].
-    c = np.zeros(n + 1)
-    c[n - 1], c[n] = 1.0, -1.0
-    x = np.sort(np.real(legendre.legroots(c)))
-    return list((x + 1.0) / 2.0)
 
 
 @dataclass(frozen=True)
@@ -259,10 +251,17 @@ def simulate(study: Study, decisions: dict, T_profile=None, guess: list | None =
     u0, c_s, _ = inlet(study, par, ratio, T_in, c_ref)
     u0 = {s: float(v) for s, v in u0.items()}
     sim = Simulation(study, dict(decisions), u0, float(c_s), par)
-    if study.reactor.kind == "plug":
-        _plug(sim, kin, T_fun, T_in, method, rtol)
-    else:
-        _tanks(sim, kin, T_fun, T_in, guess)
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        try:
+            if study.reactor.kind == "plug":
+                _plug(sim, kin, T_fun, T_in, method, rtol)
+            else:
+                _tanks(sim, kin, T_fun, T_in, guess)
+        except (ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:
+            # non-finite rates or states (an overflowing exponential, a NaN start): this point cannot be simulated
+            raise SimulationFailed(f"reference simulation failed: {type(exc).__name__}: {exc}") from None
+    if not all(np.isfinite(v) for v in sim.u_out.values()) or not np.isfinite(sim.T_out):
+        raise SimulationFailed("reference simulation gave non-finite outlet values")
     return sim
 
 
@@ -301,7 +300,7 @@ def _plug(sim: Simulation, kin: Kinetics, T_fun, T_in, method: str, rtol: float)
     for z0, z1 in segments:
         sol, how = _integrate(rhs, (z0, z1), y, method, rtol, atol)
         if not sol.success:
-            raise RuntimeError(f"reference integration failed at z = {sol.t[-1]:.4g}: {sol.message}")
+            raise SimulationFailed(f"reference integration failed at z = {sol.t[-1]:.4g}: {sol.message}")
         used.append(how)
         sim.segments.append((z0, z1, sol, None if energy else (T_fun if callable(T_fun) else _Const(T_fun))))
         y = sol.y[:, -1]
@@ -383,7 +382,7 @@ def _tanks(sim: Simulation, kin: Kinetics, T_fun, T_in, guess) -> None:
         if not sol.success or np.max(np.abs(residual(sol.x))) > 1e-9:
             sol = root(residual, sol.x, method="lm", tol=1e-14)
         if np.max(np.abs(residual(sol.x))) > 1e-8:
-            raise RuntimeError(f"reference tank solve failed in tank {k + 1}: {sol.message}")
+            raise SimulationFailed(f"reference tank solve failed in tank {k + 1}: {sol.message}")
         tank = States({s: float(sol.x[i]) for i, s in enumerate(symbols)}, float(sol.x[n]) if energy else float(T_fun))
         sim.tanks.append(tank)
         prev, prev_T = dict(tank.flows), tank.T

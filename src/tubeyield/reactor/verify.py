@@ -1,8 +1,9 @@
-"""Check a solved collocation model against the reference simulation at the same decisions."""
+"""Check a solved model against the reference simulation at the same decisions, and the record of that check."""
 
 from __future__ import annotations
 
-from tubeyield.jobs.result import Check
+from dataclasses import dataclass, field
+
 from tubeyield.reactor.model import ReactorModel
 from tubeyield.reactor.simulate import Simulation, simulate
 
@@ -11,10 +12,34 @@ from tubeyield.reactor.simulate import Simulation, simulate
 FLOOR_SHARE = 1e-6
 
 
+@dataclass
+class Check:
+    """Re-simulation of a solved model with the reference integrator: the verified discretization error."""
+    max_rel_error: float
+    worst_species: str
+    tolerance: float
+    elements: int
+    integrator: str
+    refinements: int = 0
+    edges: list | None = None                 # the mesh (element edges on [0, 1]); None for stirred tanks
+    notes: list = field(default_factory=list)  # what the refinement tried and could not do
+
+    @property
+    def passed(self) -> bool:
+        return self.max_rel_error <= self.tolerance
+
+    def to_dict(self):
+        out = {"max_rel_error": self.max_rel_error, "worst_species": self.worst_species, "tolerance": self.tolerance,
+               "passed": self.passed, "elements": self.elements, "integrator": self.integrator,
+               "refinements": self.refinements, "notes": list(self.notes)}
+        if self.edges is not None:
+            lengths = [b - a for a, b in zip(self.edges[:-1], self.edges[1:])]
+            out.update(shortest_element=min(lengths), longest_element=max(lengths), edges=list(self.edges))
+        return out
+
+
 def reference(model: ReactorModel, method: str = "LSODA") -> Simulation:
-    guess = None
-    if model.kind == "stirred":
-        guess = model.tank_states()
+    guess = model.tank_states() if model.kind == "stirred" else None
     return simulate(model.study, model.decision_values(), T_profile=model.temperature_function(), guess=guess,
                     method=method)
 
@@ -29,4 +54,5 @@ def compare(model: ReactorModel, sim: Simulation, tolerance: float) -> Check:
         e = abs(f_model[s] - f_sim[s]) / max(abs(f_sim[s]), floor)
         if e > err:
             worst, err = s, e
-    return Check(err, worst, tolerance, model.elements, sim.integrator)
+    return Check(err, worst, tolerance, model.elements, sim.integrator,
+                 edges=list(model.edges) if model.edges is not None else None)

@@ -7,6 +7,8 @@ Universal Design", 2008; recommended by B. Wong, Nature Methods 8 (2011) 441) an
 
 from __future__ import annotations
 
+from tubeyield.status import SOLVED
+
 import io
 
 import matplotlib
@@ -73,8 +75,8 @@ def profiles(profile, symbols, title: str):
 def front(result: dict, title: str):
     """The front (left) and how the decisions move along it (right)."""
     pts = result["points"]
-    ok = [p for p in pts if p["status"] == "optimal" and not p["dominated"]]
-    bad = [p for p in pts if p["status"] != "optimal"]
+    ok = [p for p in pts if p["status"] in SOLVED and not p["dominated"]]
+    bad = [p for p in pts if p["status"] not in SOLVED]
     with plt.rc_context(STYLE):
         fig, (ax, axd) = plt.subplots(1, 2, figsize=(9.2, 3.6))
         ax.plot([p["x"] for p in ok], [p["y"] for p in ok], "-o", color=PALETTE[0], ms=3.5, label="front")

@@ -6,6 +6,8 @@ inputs/ copy of the study), so `tubeyield report RESULT_DIR` rebuilds it at any 
 
 from __future__ import annotations
 
+from tubeyield.status import SOLVED
+
 import base64
 import datetime as _dt
 import json
@@ -80,7 +82,7 @@ def build_report(result_dir, out_dir=None) -> Path:
         tables["front"], front_decisions = _chosen_front_points(front)
         from tubeyield.jobs.front import front_table
         write_atomic(tab_dir / "front.csv", front_table(front).to_csv(index=False))
-        ok = [p for p in front["points"] if p["status"] == "optimal"]
+        ok = [p for p in front["points"] if p["status"] in SOLVED]
         front_stats = {"ok": sum(not p["dominated"] for p in ok), "dominated": sum(p["dominated"] for p in ok),
                        "bad": len(front["points"]) - len(ok),
                        "worst_check": max((p["check"] or 0.0) for p in ok) if ok else 0.0}
@@ -154,7 +156,7 @@ def _optimum_tables(opt: dict, tab_dir: Path):
 def _chosen_front_points(front: dict):
     """The ends, the knee and a few evenly spaced points between them."""
     pts = front["points"]
-    ok = [i for i, p in enumerate(pts) if p["status"] == "optimal" and not p["dominated"]]
+    ok = [i for i, p in enumerate(pts) if p["status"] in SOLVED and not p["dominated"]]
     if not ok:
         return [], []
     chosen = {ok[0]: f"end ({front['y']} best)", ok[-1]: f"end ({front['x']} best)"}

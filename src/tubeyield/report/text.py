@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from tubeyield.status import SOLVED
+
 CAUTION = ("Model predictions only: verify with calorimetry and a hazard study before any design or operation; "
            "follow local codes and licensed engineering practice.")
 
@@ -12,6 +14,21 @@ def fmt(v, digits: int = 5) -> str:
     if isinstance(v, float):
         return f"{v:.{digits}g}"
     return str(v)
+
+
+def hot_spot_text(lim: dict) -> str:
+    """'highest T 398.2 K at 12 % of the volume (residence time 14.3 s)' for a temperature limit's extreme."""
+    where = lim["where"]
+    word = "highest" if "<=" in lim["text"] else "lowest"
+    value = f"{fmt(lim['value'])} {lim['unit']}".rstrip()
+    if "tank" in where:
+        place = f"in tank {where['tank']}"
+    else:
+        place = f"at {100 * where['z']:.3g} % of the volume (residence time {fmt(where['residence_time_s'], 4)} s)"
+    extra = f"; held by tightening the limit at the mesh points by {lim['tightened_by_K']:.3g} K" \
+        if lim.get("tightened_by_K") else ""
+    state = "" if lim.get("holds", True) else " (EXCEEDED)"
+    return f"{word} T {value}{state} {place}{extra}"
 
 
 def _decision_lines(result) -> list[str]:
@@ -31,13 +48,15 @@ def _decision_lines(result) -> list[str]:
 
 def optimum_summary(result) -> str:
     g = result.goal
-    out = [f"{result.study}: {result.status}  ({'maximize' if g['sense'] == 'max' else 'minimize'} {g['metric']})"]
+    out = [f"{result.study}: {result.status.upper() if result.status == 'unverified' else result.status}  "
+           f"({'maximize' if g['sense'] == 'max' else 'minimize'} {g['metric']})"]
     if result.message:
         out.append(f"  {result.message}")
     if g.get("value") is not None:
         out.append(f"  {g['metric']} = {fmt(g['value'], 6)} {g.get('unit', '')}".rstrip())
     if result.decisions:
-        out += ["", "operating point" if result.status == "optimal" else "closest operating point"]
+        out += ["", {"optimal": "operating point", "unverified": "operating point (NOT verified)"}.get(
+            result.status, "closest operating point")]
         out += _decision_lines(result)
         if result.volume_m3 is not None:
             out.append(f"  reactor volume {fmt(result.volume_m3 * 1000.0)} L")
@@ -51,7 +70,7 @@ def optimum_summary(result) -> str:
     rows += [(f"{b['decision']} {'lower' if b['side'] == 'low' else 'upper'} bound" if b["side"] != "fixed"
               else f"{b['decision']} (fixed)", f"{fmt(b['bound'])} {b['unit']}".rstrip(), b["marginal"],
               b["marginal_unit"]) for b in result.bounds]
-    if result.status == "optimal":
+    if result.status in SOLVED:
         out += ["", "what limits the optimum"]
         if rows:
             w = max(len(r[0]) for r in rows)
@@ -60,6 +79,9 @@ def optimum_summary(result) -> str:
             inactive = [lim["text"] for lim in result.limits if not lim.get("active")]
             if inactive:
                 out.append(f"  not binding: {', '.join(inactive)}")
+        for lim in result.limits:
+            if "where" in lim:
+                out.append(f"  {lim['text']}: " + hot_spot_text(lim))
         else:
             out.append("  nothing: the optimum is interior (no limit or bound is active)")
     if result.conflicts:
@@ -112,7 +134,7 @@ def front_summary(result) -> str:
     rows = []
     for i, p in enumerate(result.points):
         mark = "knee" if i == result.knee else ("dominated" if p["dominated"] else "")
-        if p["status"] != "optimal":
+        if p["status"] not in SOLVED:
             rows.append(f"  {i:>3}  level {fmt(p['level'])}: not attainable")
             continue
         dec = "  ".join(f"{k} {fmt(v, 4)}" for k, v in p["decisions"].items() if not isinstance(v, list))

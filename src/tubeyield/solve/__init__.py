@@ -8,7 +8,7 @@ import pyomo.environ as pyo
 
 from tubeyield.errors import StudyError
 from tubeyield.solve import ipopt as _plugin  # noqa: F401  (registers the plug-in with Pyomo's SolverFactory)
-from tubeyield.solve.ipopt import NAME, OK_CONDITIONS
+from tubeyield.solve.ipopt import ACCEPTABLE_CONDITIONS, NAME, OK_CONDITIONS
 
 
 def make_solver(numerics):
@@ -39,4 +39,4 @@ class ExecutableIpopt:
         return res
 
 
-__all__ = ["NAME", "OK_CONDITIONS", "make_solver"]
+__all__ = ["ACCEPTABLE_CONDITIONS", "NAME", "OK_CONDITIONS", "make_solver"]

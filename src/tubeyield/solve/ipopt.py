@@ -41,54 +41,9 @@ from pyomo.opt import SolverFactory, SolverResults, SolverStatus, TerminationCon
 from pyomo.repn.plugins.nl_writer import NLWriter
 
 from tubeyield.errors import SolverOptionRefused, SolverUnavailable
+from tubeyield.solve.options import DEFAULT_OPTIONS, WARM_OPTIONS
 
 NAME = "tubeyield-ipopt"
-
-# Options measured to suit collocation models of reaction networks (SOLVER_NOTES.md): the adaptive barrier update
-# cuts iterations several-fold; MUMPS's permutation-based scaling stays off (with the row and column scaling on, it
-# changed nothing on the demo or the stiff networks below). MUMPS's row and column
-# iterative scaling (mumps_scaling 8) must stay on: without it, a 16-species network with rate constants over 12
-# decades took 1.7 s per Ipopt iteration (257 iterations, 441 s) and a 20-species one did not finish in 30 min,
-# against 44 iterations in 0.75 s and 237 in 7 s with it; the demo is unchanged (75-77 iterations over 4 starts).
-# The models start from a simulated profile in which products are exactly at their bound of zero: Ipopt's default
-# bound push (1e-2) moves them off it and breaks the collocation equations by O(1/h). A push of 1e-8 keeps the start
-# (measured on the demo, 4 starts: 11-28 iterations, against 105 with the default push; a gas case with conversion
-# near 1 failed one start in 684 iterations without state bounds and converges in 21-39 with them).
-DEFAULT_OPTIONS = {
-    "mu_strategy": "adaptive",
-    "mumps_scaling": 8,
-    "mumps_permuting_scaling": 0,
-    "bound_push": 1e-8,
-    "bound_frac": 1e-8,
-    "bound_mult_init_method": "mu-based",
-    # No bound relaxation: decisions stay inside the user's ranges and the states stay consistent with them (with
-    # Ipopt's default relaxation of 1e-8 and projection afterwards, the re-simulation error grew from 9e-11 to 2e-8).
-    # Pinned variables are casadi parameters, so Ipopt never sees equal bounds.
-    "bound_relax_factor": 0.0,
-    "tol": 1e-10,
-    # Ipopt's main test scales the dual error by the size of the multipliers; with large warm-start multipliers it
-    # accepted a front point 3e-6 below the optimum, with multipliers on slack limits. The unscaled tests (defaults
-    # 1, 1e-4, 1e-4) must hold too, so tighten them.
-    "dual_inf_tol": 1e-8,
-    "compl_inf_tol": 1e-8,
-    "constr_viol_tol": 1e-9,
-    "acceptable_tol": 1e-7,
-    "max_iter": 1000,
-}
-
-# Warm starts (continuation along a front, sweep re-solves): start from the previous primal and dual point with a small
-# barrier parameter and monotone updates. Measured on the demo's 21-point front: 5 iterations per point (adaptive
-# barrier from mu_init 1e-4: 5 per point but up to 496 near the end; cold starts: 6-32).
-WARM_OPTIONS = {
-    "warm_start_init_point": "yes",
-    "warm_start_bound_push": 1e-9,
-    "warm_start_bound_frac": 1e-9,
-    "warm_start_slack_bound_push": 1e-9,
-    "warm_start_slack_bound_frac": 1e-9,
-    "warm_start_mult_bound_push": 1e-9,
-    "mu_init": 1e-6,
-    "mu_strategy": "monotone",
-}
 
 _STATUS = {
     "Solve_Succeeded": (SolverStatus.ok, TerminationCondition.optimal),
@@ -113,7 +68,9 @@ _STATUS = {
     "NonIpopt_Exception_Thrown": (SolverStatus.error, TerminationCondition.solverFailure),
 }
 
-OK_CONDITIONS = (TerminationCondition.optimal, TerminationCondition.locallyOptimal)
+# Only Solve_Succeeded counts as converged; "acceptable" stops are retried or flagged by the jobs.
+OK_CONDITIONS = (TerminationCondition.optimal,)
+ACCEPTABLE_CONDITIONS = (TerminationCondition.locallyOptimal,)
 
 
 def termination_of(return_status: str) -> tuple[SolverStatus, TerminationCondition]:

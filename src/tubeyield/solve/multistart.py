@@ -14,6 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.stats import qmc
 
+from tubeyield.errors import SimulationFailed
 from tubeyield.reactor.simulate import Simulation, simulate
 from tubeyield.study.schema import Study
 
@@ -75,8 +76,8 @@ def screen(study: Study, points: list[dict]) -> list[Candidate]:
             goal = sim.metric(study.goal.metric)
             v = violation(study, sim)
             if not np.isfinite(goal):
-                raise FloatingPointError("goal is not finite")
-        except Exception:  # a point where the model cannot be evaluated is simply a bad start
+                raise SimulationFailed("goal is not finite")
+        except (SimulationFailed, ArithmeticError):  # a point where the model cannot be evaluated: a bad start
             sim, goal, v = None, -np.inf if study.goal.sense == "max" else np.inf, np.inf
         out.append(Candidate(p, sim, goal, v))
     out.sort(key=lambda c: c.rank_key(study.goal.sense))

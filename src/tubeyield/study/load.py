@@ -669,9 +669,11 @@ def _read_numerics(t: Table) -> Numerics:
         raise StudyError(t.key("solver"), f"'bundled' (the Ipopt in the casadi wheel) or 'executable' (an ipopt on "
                                           f"PATH), got {solver!r}")
     ipopt = t.take("ipopt", {}, types=dict, what="a table of Ipopt options such as { max_iter = 500 }")
+    from tubeyield.solve.options import user_option_problem
     for k, v in ipopt.items():
-        if not isinstance(v, (int, float, str)) or isinstance(v, bool):
-            raise StudyError(f"{t.key('ipopt')}.{k}", f"a number or a string, got {v!r}")
+        problem = user_option_problem(k, v)
+        if problem:
+            raise StudyError(f"{t.key('ipopt')}.{k}", problem)
     t.close()
     return Numerics(starts, tol, max_el, solver, tuple(ipopt.items()))
 

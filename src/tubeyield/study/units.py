@@ -135,6 +135,11 @@ def decision_to_user(value, decision):
     return convert(value, decision.si_unit, decision.unit) if decision.unit else value
 
 
+def decisions_to_user(study, values: dict) -> dict:
+    """SI decision values by name -> the units the user wrote each decision in."""
+    return {name: decision_to_user(v, study.decision(name)) for name, v in values.items()}
+
+
 def unit_step(user_unit: str, si_unit: str) -> float:
     """SI size of one user unit taken as a difference (one degC step is one K), for marginal values per unit."""
     if not user_unit:

@@ -1,0 +1,50 @@
+"""The optimization problem of a study: the reactor model with the study's goal (scaled) and limits, and one timed
+solve. Shared by the jobs that optimize (optimize, refinement, front, window, sweep)."""
+
+from __future__ import annotations
+
+import time
+
+from tubeyield.reactor import build, state_scales
+from tubeyield.reactor.model import ReactorModel
+from tubeyield.study.schema import Study
+
+FRACTION_KINDS = ("conversion", "yield", "selectivity")
+
+
+def goal_scale(study: Study, value: float | None) -> float:
+    """The goal's typical magnitude, so that Ipopt's objective is of order one: fractions (conversion, yield,
+    selectivity) are scaled only when small (a yield of 1e-6 would otherwise be lost below the tolerances), other
+    metrics by the best screened value."""
+    v = abs(value) if value is not None and value == value else 0.0
+    if study.goal.metric.kind in FRACTION_KINDS:
+        return min(1.0, max(v, 1e-9)) if v > 0 else 1.0
+    return v if v > 0 else 1.0
+
+
+def prepare(study: Study, mesh=None, scale_hint: float | None = None, start=None) -> ReactorModel:
+    """The model with the study's goal and limits. `mesh`: a number of elements or the element edges. `start` (a
+    Simulation) sets the species scales; without one, a simulation at the middle of the decision ranges does (or
+    unit scales if it cannot be integrated)."""
+    if start is None:
+        from tubeyield.reactor.simulate import SimulationFailed, simulate
+        from tubeyield.solve.multistart import SCREEN_RTOL
+        mid = {d.name: 0.5 * (d.low + d.high) for d in study.decisions}
+        try:
+            start = simulate(study, mid, rtol=SCREEN_RTOL)
+        except SimulationFailed:
+            start = None
+    model = build(study, mesh, state_scales(start) if start is not None else None)
+    model.set_goal(study.goal.metric, study.goal.sense, goal_scale(study, scale_hint))
+    model.add_limits(study.goal.limits)
+    return model
+
+
+def timed_solve(solver, model: ReactorModel, timing: dict, **kw):
+    """solver.solve with its stages added to `timing` (solve = NL write + solver build + Ipopt + loading)."""
+    t = time.perf_counter()
+    res = solver.solve(model.m, **kw)
+    timing["solve"] = timing.get("solve", 0.0) + time.perf_counter() - t
+    for k in ("nl_write", "solver_build", "ipopt"):
+        timing[k] = timing.get(k, 0.0) + solver.last_timing.get(k, 0.0)
+    return res

@@ -1,0 +1,156 @@
+"""Verification and mesh refinement of a solved optimization model.
+
+Every optimum is re-simulated by the reference integrator at its own decisions. While the outlet flows differ by more
+than `numerics.check_tolerance`, the mesh is refined where the collocation residual says the error is: twice the
+elements, placed by equidistribution of the estimated error (reactor.mesh), and the problem is re-solved from the
+re-simulated profile (a temperature profile decision carried over by interpolation). A refined solve that stalls is
+tried again with the recovery options (adaptive barrier, more iterations) before the refinement gives up and the
+result is flagged.
+
+Reactor-wide temperature limits are constraints at the collocation points only; the temperature between them can
+pass the limit (an overshooting profile polynomial, a hot spot of an energy balance between points). They are checked
+on the re-simulation, where the true extreme is found between grid points, and where one is exceeded the constraint
+at the points is tightened by the excess and the problem re-solved (warm start), a few times at most.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+
+from tubeyield.jobs.problem import prepare, timed_solve
+from tubeyield.reactor.mesh import breakpoints, equidistribute
+from tubeyield.reactor.model import ReactorModel
+from tubeyield.reactor.verify import FLOOR_SHARE, Check, compare, reference
+from tubeyield.solve import OK_CONDITIONS
+from tubeyield.solve.options import RECOVERY_OPTIONS, REFINE_OPTIONS
+from tubeyield.study.schema import Study
+
+TIGHTENING_ROUNDS = 4      # re-solves that tighten a temperature limit exceeded between mesh points
+
+
+@dataclass
+class HotSpot:
+    """The extreme temperature along the reactor for one temperature limit, from the re-simulation."""
+    limit: str
+    value: float              # K
+    z: float                  # position: fraction of the reactor volume (plug), tank number (tanks)
+    excess: float             # K past the limit (<= 0: the limit holds)
+    tightened_by: float = 0.0  # K the constraint at the collocation points was tightened by
+
+    def to_dict(self) -> dict:
+        return {"limit": self.limit, "T_K": self.value, "z": self.z, "excess_K": self.excess,
+                "tightened_by_K": self.tightened_by}
+
+
+@dataclass
+class Verified:
+    model: ReactorModel
+    check: Check
+    simulation: object
+    hot_spots: list
+    limits_hold: bool         # every temperature limit holds on the re-simulation (within the check tolerance)
+
+
+def _checked(model: ReactorModel, tol: float, timing: dict):
+    t = time.perf_counter()
+    sim = reference(model)
+    check = compare(model, sim, tol)
+    timing["check"] = timing.get("check", 0.0) + time.perf_counter() - t
+    return sim, check
+
+
+def verify_and_refine(study: Study, model: ReactorModel, solver, options: dict, timing: dict,
+                      tee: bool = False) -> Verified:
+    """Re-simulate, refine the mesh until the check passes (or numerics.max_elements), then hold the temperature
+    limits between mesh points. The returned model may be a new, finer one."""
+    tol = study.numerics.check_tolerance
+    sim, check = _checked(model, tol, timing)
+    notes, refinements = [], 0
+    while not check.passed and model.edges is not None:
+        n_new = min(2 * model.elements, study.numerics.max_elements)
+        if n_new <= model.elements:
+            notes.append(f"the mesh reached numerics.max_elements = {study.numerics.max_elements}")
+            break
+        finer = _refined(study, model, sim, n_new, solver, options, timing, tee)
+        if finer is None:
+            notes.append(f"the refined mesh of {n_new} elements did not converge, even with the recovery options")
+            break
+        model, refinements = finer, refinements + 1
+        sim, check = _checked(model, tol, timing)
+    model, sim, check, hot, held = _hold_temperature_limits(study, model, sim, check, solver, options, timing, tee)
+    check.refinements = refinements
+    check.notes = notes + check.notes
+    return Verified(model, check, sim, hot, held)
+
+
+def _refined(study: Study, model: ReactorModel, sim, n_new: int, solver, options: dict, timing: dict, tee: bool):
+    """The problem on an equidistributed mesh of n_new elements, solved from `sim`; None when it does not converge."""
+    floor = FLOOR_SHARE * sum(abs(v) for v in sim.u_in.values())
+    errors = model.element_errors(sim, floor)
+    zones = study.reactor.zones if study.reactor.heat == "zones" else 1
+    edges = equidistribute(model.edges, errors, n_new, study.reactor.points, fixed=breakpoints(zones))
+    decisions = model.decision_values()
+    T_fun = model.temperature_function()
+    t = time.perf_counter()
+    finer = prepare(study, edges, scale_hint=model.goal_scale, start=sim)
+    timing["build"] = timing.get("build", 0.0) + time.perf_counter() - t
+    if "T" in finer.decisions and finer.decisions["T"].profile:
+        decisions["T"] = [T_fun(z) for z in finer.inner]
+    for extra in (REFINE_OPTIONS, RECOVERY_OPTIONS):
+        finer.set_decisions(decisions)
+        finer.initialize(sim)
+        res = timed_solve(solver, finer, timing, options={**extra, **options}, tee=tee)
+        if res.solver.termination_condition in OK_CONDITIONS:
+            return finer
+    return None
+
+
+def temperature_extremes(study: Study, sim) -> list[HotSpot]:
+    """For each temperature limit: the true extreme along the reactor on the re-simulation and its excess."""
+    out = []
+    for lim in study.goal.limits:
+        if lim.metric is not None:
+            continue
+        value, z = sim.temperature_extreme("max" if lim.sense == "<=" else "min")
+        excess = value - lim.bound if lim.sense == "<=" else lim.bound - value
+        out.append(HotSpot(lim.text, value, z, excess))
+    return out
+
+
+def _hold_temperature_limits(study, model, sim, check, solver, options, timing, tee):
+    """Tighten temperature limits exceeded between mesh points until the re-simulation meets them."""
+    hot = temperature_extremes(study, sim)
+    allowed = [study.numerics.check_tolerance * next(l.bound for l in study.goal.limits if l.text == h.limit)
+               for h in hot]
+    handles = {lh.limit.text: lh for lh in model.limits if lh.limit.metric is None}
+    shift = {h.limit: 0.0 for h in hot}
+    for _ in range(TIGHTENING_ROUNDS):
+        over = [(h, a) for h, a in zip(hot, allowed) if h.excess > a and h.limit in handles]
+        if not over or model.edges is None:
+            break
+        for h, _a in over:
+            shift[h.limit] += 1.05 * h.excess
+            _tighten(handles[h.limit], shift[h.limit], model.T_scale)
+        res = timed_solve(solver, model, timing, options=options, warmstart=True, tee=tee)
+        if res.solver.termination_condition not in OK_CONDITIONS:
+            check.notes.append("tightening a temperature limit exceeded between mesh points did not converge")
+            break
+        sim, check = _checked(model, study.numerics.check_tolerance, timing)
+        hot = temperature_extremes(study, sim)
+    for h in hot:
+        h.tightened_by = shift.get(h.limit, 0.0)
+    held = all(h.excess <= a for h, a in zip(hot, allowed))
+    if not held:
+        worst = max(hot, key=lambda h: h.excess)
+        check.notes.append(f"{worst.limit} is exceeded by {worst.excess:.3g} K between mesh points "
+                           f"(at z = {worst.z:.4g})")
+    return model, sim, check, hot, held
+
+
+def _tighten(handle, shift: float, T_scale: float) -> None:
+    """Move the bound of a temperature limit's constraints (at the collocation points) inwards by `shift` K."""
+    lim = handle.limit
+    bound = (lim.bound - shift if lim.sense == "<=" else lim.bound + shift) / T_scale
+    for con in handle.constraints:
+        con.set_value((None, con.body, bound) if lim.sense == "<=" else (bound, con.body, None))
