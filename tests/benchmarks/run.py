@@ -374,7 +374,7 @@ def write_report(rows, notes, out: Path, started: float, quick: bool):
     for k in "abc":
         if k in by:
             s = by[k]["stages"]
-            lines.append(f"| {k} | {fmt(s.get('screen'))} | {fmt(s.get('uniform_start'))} | {fmt(s.get('build'))} | "
+            lines.append(f"| {k} | {fmt(s.get('screen'))} | {fmt(s.get('profile_search'))} | {fmt(s.get('build'))} | "
                          f"{fmt(s.get('nl_write'))} | {fmt(s.get('solver_build'))} | {fmt(s.get('ipopt'))} | "
                          f"{fmt(s.get('check'))} | {fmt(s.get('total'))} |")
     if "d" in by:
@@ -503,12 +503,12 @@ def _explain(by) -> list:
         r = by.get(k)
         if r and (r.get("ratio_casadi") or 0) > 1.5:
             st = r["stages"]
-            out.append(f"- Case {k} against casadi ({fmt(r['ratio_casadi'])}x): {fmt(st.get('uniform_start'))} s of "
+            out.append(f"- Case {k} against casadi ({fmt(r['ratio_casadi'])}x): {fmt(st.get('profile_search'))} s of "
                        f"tubeyield's {fmt(r['tubeyield_s'])} s is the uniform-temperature optimization it runs first "
                        "as a start: temperature-profile problems have several local optima (four zones on this demo: "
                        "0.5033, 0.5159 and 0.5268 from random starts), and the baseline is given the good start for "
                        "free. Without it tubeyield would cost about "
-                       f"{fmt(r['tubeyield_s'] - (st.get('uniform_start') or 0))} s, the NL route (Pyomo build + NL "
+                       f"{fmt(r['tubeyield_s'] - (st.get('profile_search') or 0))} s, the NL route (Pyomo build + NL "
                        f"write + casadi import) adding about {fmt(st.get('build', 0) + st.get('nl_write', 0))} s to the "
                        "hand-written model.")
     b = by.get("b")

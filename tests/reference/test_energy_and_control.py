@@ -132,11 +132,21 @@ def test_optimal_temperature_profile_matches_published_optimum():
     res = optimize(ray("free"))
     assert res.status == "optimal"
     assert outlet_b(res) == pytest.approx(0.6108, rel=1e-4)          # published, about 0.6108 [Ray]
-    assert outlet_b(res) == pytest.approx(0.6108029, rel=1e-5)       # our converged recomputation
+    # A piecewise-linear profile on 40 elements is one admissible profile: it cannot beat the continuous optimum
+    # (our converged recomputation, 0.6108029), and it comes within 5e-5 of it.
+    assert 0.6108029 * (1 - 5e-5) < outlet_b(res) <= 0.6108029 + 2e-7
     T = res.decisions["T"]["value"]
     assert T[0] == pytest.approx(398.0, abs=1e-3)                    # starts at the upper bound
     assert 320 < T[-1] < 332                                         # falls to about 326 K
     assert res.check.passed
+
+
+@pytest.mark.slow
+def test_free_profile_converges_to_the_continuous_optimum():
+    res = optimize(ray("free", elements=160))
+    assert res.status == "optimal" and res.check.passed
+    assert outlet_b(res) == pytest.approx(0.6108029, rel=1e-5)       # our converged recomputation
+    assert outlet_b(res) <= 0.6108029 + 2e-7
 
 
 def test_constant_and_zoned_temperatures_bracket_the_profile():

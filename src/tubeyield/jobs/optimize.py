@@ -15,7 +15,8 @@ import pyomo.environ as pyo
 
 from tubeyield import status as st
 from tubeyield.jobs.infeasible import FEASIBLE_VIOLATION, closest_point, conflict_message, conflicts
-from tubeyield.jobs.problem import prepare, timed_solve
+from tubeyield.jobs.problem import prepare, starting_mesh, timed_solve
+from tubeyield.jobs.profile_search import is_profile_study, profile_starts
 from tubeyield.jobs.refine import verify_and_refine
 from tubeyield.jobs.result import Result
 from tubeyield.reactor.metrics import all_metrics, metric_display
@@ -48,18 +49,21 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
     timing["screen"] = time.perf_counter() - t
     if not candidates:
         return _failed(study, "the reference simulation failed at every starting point", timing)
-    t = time.perf_counter()
-    uniform = _uniform_temperature_start(study, solver, seed, starts)
-    if uniform is not None:
-        timing["uniform_start"] = time.perf_counter() - t
-        candidates = [uniform] + candidates[:len(candidates) - 1]
+    rungs = []
+    if is_profile_study(study):
+        t = time.perf_counter()
+        profile, rungs = profile_starts(study, solver, seed, starts or numerics.starts, options, timing)
+        timing["profile_search"] = time.perf_counter() - t
+        candidates = sorted(profile + candidates[:max(1, len(candidates) - len(profile))],
+                            key=lambda c: c.rank_key(study.goal.sense))
 
     t = time.perf_counter()
     reuse = model is not None
     if reuse:
         model.set_parameters(study)
     else:
-        model = prepare(study, scale_hint=max((abs(c.goal) for c in candidates if c.goal == c.goal), default=None),
+        model = prepare(study, starting_mesh(study, [c.simulation for c in candidates]),
+                        scale_hint=max((abs(c.goal) for c in candidates if c.goal == c.goal), default=None),
                         start=candidates[0].simulation)
     timing["build"] = time.perf_counter() - t
 
@@ -84,7 +88,7 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
             # Ipopt stopped at its "acceptable" level only: go on from there once, warm, before flagging it
             res = timed_solve(solver, model, timing, options=options, reuse_structure=True, warmstart=True, tee=tee)
             condition = res.solver.termination_condition
-        run = {"start": decisions_to_user(study, cand.decisions), "status": str(condition),
+        run = {"from": cand.label, "start": decisions_to_user(study, cand.decisions), "status": str(condition),
                "iterations": solver.last_stats.get("iterations"), "goal": None}
         if condition in OK_CONDITIONS or condition in ACCEPTABLE_CONDITIONS:
             run["goal"] = model.metric_value(study.goal.metric)
@@ -104,7 +108,8 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
     best_goal = optima[0][0]["goal"]
     starts_info = {"n": len(runs), "ok": sum(r["goal"] is not None for r in runs),
                    "reached_best": sum(1 for r in runs if r["goal"] is not None and _same(r["goal"], best_goal)),
-                   "distinct_optima": [r["goal"] for r, _ in optima], "runs": runs}
+                   "distinct_optima": [{"goal": metric_display(study.goal.metric, r["goal"])[0], "from": r["from"]}
+                                       for r, _ in optima], "ladder": rungs, "runs": runs}
     tried = []
     for run, snap in optima[:VERIFY_AT_MOST]:
         model.restore(snap)
@@ -151,38 +156,6 @@ def _doubts(run: dict, verified) -> list[str]:
     return out
 
 
-def _uniform_temperature_start(study: Study, solver, seed: int, starts: int | None = None):
-    """For zones and free profiles: the optimum at one uniform temperature, as the first start.
-
-    Temperature-profile problems have many local optima (measured: four zones on the demo, 8 random starts ended at
-    0.5033, 0.5159 and 0.5268). The uniform optimum is a feasible point of the profile problem, so a local solve from
-    it cannot end below what one temperature gives; it is the continuation an engineer would use."""
-    import dataclasses
-
-    from tubeyield.reactor.simulate import simulate
-    from tubeyield.solve.multistart import Candidate, violation
-    from tubeyield.study.schema import Decision
-    heat = study.reactor.heat
-    if heat not in ("zones", "free"):
-        return None
-    temps = [d for d in study.decisions if d.name == "T" or d.name.startswith("T.")]
-    if not temps or all(d.fixed for d in temps):
-        return None
-    T = temps[0]
-    decisions = tuple(d for d in study.decisions if d not in temps) + (Decision("T", T.low, T.high, T.unit, "K"),)
-    uniform = dataclasses.replace(study, decisions=decisions,
-                                  reactor=dataclasses.replace(study.reactor, heat="isothermal", zones=1))
-    res = optimize(uniform, starts=max(1, (starts or study.numerics.starts) // 2), seed=seed, solver=solver)
-    if res.status not in (st.OPTIMAL, st.UNVERIFIED):
-        return None
-    values = {k: v for k, v in res.decisions_si.items() if k != "T"}
-    T_opt = res.decisions_si["T"]
-    for d in temps:
-        values[d.name] = T_opt
-    sim = simulate(study, values)
-    return Candidate(values, sim, sim.metric(study.goal.metric), violation(study, sim))
-
-
 def _better(study: Study, a: float, b: float) -> bool:
     return a > b if study.goal.sense == "max" else a < b
 
@@ -224,7 +197,7 @@ def _result(study: Study, model: ReactorModel, status: str, check, starts_info: 
         low, high = decision_to_user([d.low, d.high], d)
         entry = {"unit": d.unit, "low": low, "high": high, "fixed": d.fixed, "value": decision_to_user(v, d)}
         if isinstance(v, list):
-            entry.update(z=list(model.inner), min=decision_to_user(min(v), d), max=decision_to_user(max(v), d))
+            entry.update(z=model.profile_positions(), min=decision_to_user(min(v), d), max=decision_to_user(max(v), d))
         decisions[name] = entry
     metrics = {}
     for met in all_metrics(study):
@@ -259,6 +232,7 @@ def _with_hot_spots(study: Study, limits: list, verified, tau: float) -> None:
         if h is None:
             continue
         entry["value"] = convert(h.value, "K", lim.unit) if lim.unit else h.value
+        entry["heat"] = study.reactor.heat
         entry["holds"] = h.excess <= study.numerics.check_tolerance * lim.bound
         if plug:
             entry["where"] = {"z": h.z, "residence_time_s": h.z * tau, "volume_m3": h.z * tau * study.feed.flow}

@@ -96,7 +96,7 @@ def _refined(study: Study, model: ReactorModel, sim, n_new: int, solver, options
     finer = prepare(study, edges, scale_hint=model.goal_scale, start=sim)
     timing["build"] = timing.get("build", 0.0) + time.perf_counter() - t
     if "T" in finer.decisions and finer.decisions["T"].profile:
-        decisions["T"] = [T_fun(z) for z in finer.inner]
+        decisions["T"] = [T_fun(z) for z in finer.profile_positions()]
     for extra in (REFINE_OPTIONS, RECOVERY_OPTIONS):
         finer.set_decisions(decisions)
         finer.initialize(sim)

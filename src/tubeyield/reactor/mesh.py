@@ -25,6 +25,13 @@ import numpy as np
 from scipy.interpolate import BarycentricInterpolator
 
 DENSITY_FLOOR = 0.05        # share of the mean density below which no element's density falls
+POINT_SPACING = 5e-6        # pyomo.dae rounds collocation points to 6 decimals: keep them at least this far apart
+
+
+def min_element(points: int) -> float:
+    """The shortest element (share of the tube) whose Radau points stay distinct after pyomo.dae's rounding."""
+    nodes = np.concatenate([[0.0], radau_roots(points)])
+    return POINT_SPACING / float(np.min(np.diff(nodes)))
 
 
 def graded_edges(n: int, grading: float = 1.0, start: float = 0.0, end: float = 1.0) -> list[float]:
@@ -121,6 +128,9 @@ def equidistribute(edges, errors, n_new: int, points: int, fixed=(0.0, 1.0)) -> 
     if not np.any(density > 0):
         density = np.ones_like(h)
     density = np.maximum(density, DENSITY_FLOOR * float(np.sum(density * h)))
+    shortest = min_element(points)
+    for _ in range(3):      # no element shorter than min_element: cap the density (the cap moves with the total)
+        density = np.minimum(density, float(np.sum(density * h)) / (n_new * shortest))
     cumulative = np.concatenate([[0.0], np.cumsum(density * h)])
 
     def mass(z):
@@ -154,10 +164,11 @@ def simulation_errors(sim, edges, points: int, scales: np.ndarray) -> np.ndarray
 
 
 def adapted_edges(sims, n: int, points: int, fixed=(0.0, 1.0), grading: float = 1.0, rounds: int = 3,
-                  floor_share: float = 1e-6) -> list[float]:
-    """A mesh of n elements placed for a set of simulations: start from the graded mesh, then equidistribute the
-    combined density of every simulation's interpolation residual, a few rounds (a fixed-point iteration: each
-    round re-estimates on the mesh of the last)."""
+                  floor_share: float = 1e-6, tolerance: float = 0.0) -> list[float]:
+    """A mesh of n elements placed for a set of simulations: start from the graded mesh and, unless the summed error
+    estimate of every simulation is already within `tolerance` there, equidistribute the combined density of every
+    simulation's interpolation residual, a few rounds (a fixed-point iteration: each round re-estimates on the mesh
+    of the last)."""
     fixed = sorted(set(fixed))
     edges = []
     per = max(1, n // (len(fixed) - 1))
@@ -165,15 +176,19 @@ def adapted_edges(sims, n: int, points: int, fixed=(0.0, 1.0), grading: float = 
         part = graded_edges(per, grading if k == 0 else 1.0, a, b)
         edges += part if not edges else part[1:]
     order = points + 1
-    for _ in range(rounds):
+    scales = []
+    for sim in sims:
+        total = sum(abs(v) for v in sim.u_in.values()) or 1.0
+        sizes = sim.typical_sizes()
+        scales.append(np.array([max(sizes[s], floor_share * total) for s in sim.study.symbols]
+                               + ([max(sim.T_out, 1.0)] if sim.study.reactor.heat in ("adiabatic", "cooled") else [])))
+    for r in range(rounds):
         h = np.diff(edges)
+        errors = [simulation_errors(sim, edges, points, sc) for sim, sc in zip(sims, scales)]
+        if r == 0 and all(float(np.sum(e)) <= tolerance for e in errors):
+            break                                   # the starting mesh already resolves every simulation
         density = np.zeros(len(h))
-        for sim in sims:
-            total = sum(abs(v) for v in sim.u_in.values()) or 1.0
-            sizes = sim.typical_sizes()
-            scales = np.array([max(sizes[s], floor_share * total) for s in sim.study.symbols]
-                              + ([max(sim.T_out, 1.0)] if sim.study.reactor.heat in ("adiabatic", "cooled") else []))
-            e = simulation_errors(sim, edges, points, scales)
+        for e in errors:
             d = e ** (1.0 / order) / h
             if np.sum(d * h) > 0:
                 density += d / np.sum(d * h)          # each simulation weighs the same

@@ -40,6 +40,7 @@ class Handle:
     low: float                    # SI bounds from the study
     high: float
     profile: bool = False
+    positions: list | None = None  # a profile's positions z (its values' places along the reactor)
 
     def datas(self):
         return list(self.var) if self.profile else [self.var]
@@ -49,7 +50,10 @@ class Handle:
         return vals if self.profile else vals[0]
 
     def set(self, si_value) -> None:
-        """Set the starting value (clipped into the bounds); a list sets a profile point by point."""
+        """Set the starting value (clipped into the bounds); a list sets a profile point by point, a function of z
+        (a starting profile) is evaluated at the profile's positions."""
+        if callable(si_value):
+            si_value = [si_value(z) for z in self.positions]
         vals = si_value if isinstance(si_value, (list, tuple, np.ndarray)) else [si_value] * len(self.datas())
         for v, x in zip(self.datas(), vals):
             v.set_value(min(max(float(x), self.low), self.high) / self.scale, skip_validation=True)
@@ -169,6 +173,10 @@ class ReactorModel:
 
     def T_cool_expr(self):
         return self.T_scale * self.m.T_cool if self.study.reactor.heat == "cooled" else None
+
+    def profile_positions(self) -> list:
+        """Positions z of a profile decision's values (the element edges of a free temperature profile)."""
+        return list(self.edges) if self.edges is not None else []
 
     def set_decisions(self, values: dict) -> None:
         for name, v in values.items():

@@ -1,7 +1,8 @@
 """Plug-flow model: orthogonal collocation on finite elements (Radau points) with pyomo.dae.
 
-Heat modes: isothermal (one T), zones (equal zones of whole elements, one T each), free (T at every collocation
-point, bounded: the optimal-control upper bound on what a temperature profile can give), adiabatic and cooled
+Heat modes: isothermal (one T), zones (equal zones of whole elements, one T each), free (a continuous, piecewise-linear
+T over the elements, bounded: as the mesh is refined, the optimal-control bound on what a temperature profile can
+give), adiabatic and cooled
 (energy balance with heats of reaction, heat capacities and wall heat transfer to a coolant).
 
 References
@@ -22,7 +23,7 @@ import pyomo.dae as dae
 import pyomo.environ as pyo
 
 from tubeyield.reactor.balances import concentrations, math_for, wall_term
-from tubeyield.reactor.mesh import breakpoints, initial_edges
+from tubeyield.reactor.mesh import breakpoints, initial_edges, radau_roots
 from tubeyield.reactor.model import T_STATE_BOUNDS, Handle, ReactorModel
 
 
@@ -55,18 +56,35 @@ class PlugModel(ReactorModel):
             m.theta = pyo.Var(m.z, bounds=T_STATE_BOUNDS, initialize=pyo.value(m.T_in))
             m.dtheta = dae.DerivativeVar(m.theta, wrt=m.z)
         if heat == "free":
+            # The free profile is continuous and piecewise linear over the elements: its values at the element edges
+            # are the decisions. Within an element T(z) is then a known smooth function, so the collocation solves
+            # the same balances the reference simulation integrates, and the optimizer cannot exploit the gaps
+            # between collocation points (free values at every point can: on a reversible exothermic reaction they
+            # gave a conversion of 0.99999 where no profile exceeds 0.9386). The limit T <= ... holds exactly, at the
+            # edges, where a piecewise-linear profile has its extremes.
             d = st.decision("T")
-            m.Tp = pyo.Var(m.z, bounds=(d.low / self.T_scale, d.high / self.T_scale),
+            m.Tp = pyo.Var(range(len(self.edges)), bounds=(d.low / self.T_scale, d.high / self.T_scale),
                            initialize=0.5 * (d.low + d.high) / self.T_scale)
         pyo.TransformationFactory("dae.collocation").apply_to(
             m, wrt=m.z, nfe=len(self.edges) - 1, ncp=rx.points, scheme="LAGRANGE-RADAU")
 
         self.points = sorted(m.z)
+        K = rx.points
+        if len(self.points) != self.elements * K + 1:
+            raise ValueError(f"the collocation set holds {len(self.points)} points, not {self.elements * K + 1}: "
+                             "element edges closer than reactor.mesh.min_element allows")
+        # pyomo.dae rounds collocation points to 6 decimals of z; where a position matters (the free profile's
+        # interpolation) each point's element and exact Radau coordinate are used instead.
+        roots = radau_roots(K)
+        self._local = {0.0: (0, 0.0)}
+        for i, z in enumerate(self.points[1:]):
+            self._local[z] = (i // K, float(roots[i % K]))
         inner = self.points[1:]
         self.inner = inner
         if heat == "free":
             d = st.decision("T")
-            self.decisions["T"] = Handle("T", [m.Tp[z] for z in inner], self.T_scale, d.low, d.high, profile=True)
+            self.decisions["T"] = Handle("T", [m.Tp[k] for k in range(len(self.edges))], self.T_scale, d.low, d.high,
+                                         profile=True, positions=list(self.edges))
 
         theta = self.theta_at
         tau = self.tau_expr()
@@ -113,7 +131,7 @@ class PlugModel(ReactorModel):
         elif heat == "zones":
             self.T_points = [m.Tz[k] for k in range(1, rx.zones + 1)]
         elif heat == "free":
-            self.T_points = [m.Tp[z] for z in inner]
+            self.T_points = [m.Tp[k] for k in range(len(self.edges))]
         else:
             self.T_points = [m.theta[z] for z in self.points]
 
@@ -137,20 +155,21 @@ class PlugModel(ReactorModel):
         if heat == "zones":
             return m.Tz[self.zone_of(z)]
         if heat == "free":
-            return m.Tp[z if z > 0 else self.points[1]]
+            k, w = self._local[z]
+            return m.Tp[k] if w == 0.0 else m.Tp[k + 1] if w == 1.0 else (1.0 - w) * m.Tp[k] + w * m.Tp[k + 1]
         return m.theta[z]
 
     def temperature_function(self):
         """T(z) in K at the current values, as the reference simulation needs it (None when T is a state)."""
-        from tubeyield.reactor.simulate import CollocationProfile, PiecewiseConstant
+        from tubeyield.reactor.simulate import PiecewiseConstant, PiecewiseLinear
         heat = self.study.reactor.heat
         if heat == "zones":
             zones = self.study.reactor.zones
             return PiecewiseConstant(breakpoints(zones),
                                      [pyo.value(self.m.Tz[k]) * self.T_scale for k in range(1, zones + 1)])
         if heat == "free":
-            return CollocationProfile(self.edges, self.study.reactor.points,
-                                      [pyo.value(self.m.Tp[z]) * self.T_scale for z in self.inner])
+            return PiecewiseLinear(list(self.edges),
+                                   [pyo.value(self.m.Tp[k]) * self.T_scale for k in range(len(self.edges))])
         return None
 
     def element_errors(self, sim, floor: float = 0.0) -> np.ndarray:

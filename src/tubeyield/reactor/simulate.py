@@ -23,13 +23,12 @@ from scipy.optimize import root
 from tubeyield.errors import SimulationFailed
 from tubeyield.reactor.balances import concentration_scale, concentrations, inlet, wall_term
 from tubeyield.reactor.kinetics import Kinetics
-from tubeyield.reactor.mesh import radau_roots
 from tubeyield.reactor.metrics import metric_value
 from tubeyield.reactor.parameters import study_parameters
 from tubeyield.study.metric import Metric
 from tubeyield.study.schema import Study
 
-__all__ = ["CollocationProfile", "PiecewiseConstant", "Simulation", "SimulationFailed", "States", "simulate"]
+__all__ = ["PiecewiseConstant", "PiecewiseLinear", "Simulation", "SimulationFailed", "States", "simulate"]
 
 RTOL = 1e-10
 ATOL = 1e-14
@@ -51,32 +50,14 @@ class PiecewiseConstant:
 
 
 @dataclass(frozen=True)
-class CollocationProfile:
-    """T(z) from its values at the Radau points of each element: the Lagrange polynomial through them in each
-    element, which is the profile the collocation equations see."""
+class PiecewiseLinear:
+    """T(z) linear between its values at `edges` (a free profile: continuous, piecewise linear over the elements).
+    Integrated element by element, so the kinks at the edges cost the integrator nothing."""
     edges: list
-    points: int
-    values: list          # ncp values per element, element by element
-
-    def __post_init__(self):
-        object.__setattr__(self, "_roots", radau_roots(self.points))
+    values: list
 
     def __call__(self, z):
-        k = min(max(bisect.bisect_left(self.edges, z - 1e-12) - 1, 0), len(self.edges) - 2)
-        a, b = self.edges[k], self.edges[k + 1]
-        s = (z - a) / (b - a)
-        vals = self.values[k * self.points:(k + 1) * self.points]
-        roots = self._roots
-        if self.points == 1:
-            return vals[0]
-        total = 0.0
-        for i, ri in enumerate(roots):
-            basis = 1.0
-            for j, rj in enumerate(roots):
-                if j != i:
-                    basis = basis * (s - rj) / (ri - rj)
-            total = total + basis * vals[i]
-        return total
+        return float(np.interp(z, self.edges, self.values))
 
     def segments(self):
         return list(zip(self.edges[:-1], self.edges[1:]))
@@ -224,7 +205,8 @@ class Simulation:
 
 
 def temperature_profile(study: Study, decisions: dict):
-    """T(z) for the modes where temperature is a decision: a float, PiecewiseConstant or CollocationProfile."""
+    """T(z) for the modes where temperature is a decision: a float, PiecewiseConstant or PiecewiseLinear (a free
+    profile given as one value is uniform)."""
     heat = study.reactor.heat
     if heat == "isothermal":
         return decisions["T"]

@@ -80,7 +80,7 @@ def optimum_summary(result) -> str:
             if inactive:
                 out.append(f"  not binding: {', '.join(inactive)}")
         for lim in result.limits:
-            if "where" in lim:
+            if "where" in lim and (lim.get("heat") != "isothermal" or not lim.get("holds", True)):
                 out.append(f"  {lim['text']}: " + hot_spot_text(lim))
         else:
             out.append("  nothing: the optimum is interior (no limit or bound is active)")

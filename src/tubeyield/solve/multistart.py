@@ -27,6 +27,7 @@ class Candidate:
     simulation: Simulation | None
     goal: float
     violation: float          # sum of limit violations, each relative to its bound scale
+    label: str = "screened design"   # where the start comes from
 
     def rank_key(self, sense: str):
         feasible = self.violation <= 1e-9

@@ -136,8 +136,9 @@ def decision_to_user(value, decision):
 
 
 def decisions_to_user(study, values: dict) -> dict:
-    """SI decision values by name -> the units the user wrote each decision in."""
-    return {name: decision_to_user(v, study.decision(name)) for name, v in values.items()}
+    """SI decision values by name -> the units the user wrote each decision in (a profile given as a function of z
+    is shown as 'profile')."""
+    return {name: "profile" if callable(v) else decision_to_user(v, study.decision(name)) for name, v in values.items()}
 
 
 def unit_step(user_unit: str, si_unit: str) -> float:
