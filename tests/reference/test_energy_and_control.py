@@ -14,6 +14,7 @@ Sources:
 
 import math
 
+import numpy as np
 import pytest
 
 from helpers import study_from_toml
@@ -214,3 +215,67 @@ def test_van_de_vusse_optima():
     plug = optimize(vdv("plug", '["0.05 min", "5 min"]'))
     assert plug.outlet["B"]["conc"] == pytest.approx(1.67894, rel=1e-5)
     assert plug.decisions["tau"]["value"] == pytest.approx(0.60771, rel=1e-4)
+
+
+# ------------------------------------------------------------- optimal temperature progression [Levenspiel ch. 9]
+
+REVERSIBLE = """
+[species.A]
+[species.B]
+[[reaction]]
+id = "iso"
+equation = "A <=> B"
+k = "0.05 1/s"
+T_ref = "400 K"
+Ea = "60 kJ/mol"
+K = 10.0
+dH = "-60 kJ/mol"
+[feed]
+flow = "1 L/min"
+conc = { A = "1 mol/L" }
+[reactor]
+heat = "free"
+elements = 40
+[operate]
+tau = "100 s"
+T = ["300 K", "500 K"]
+[goal]
+maximize = "conversion:A"
+"""
+
+
+def optimal_progression_conversion(tau: float = 100.0) -> float:
+    """A single reversible exothermic reaction in plug flow: the rate is largest, at every conversion, at the
+    temperature where dr/dT = 0 (within the bounds), and following that optimal temperature progression maximizes
+    the conversion at any residence time (Levenspiel, Chemical Reaction Engineering, 3rd ed. 1999, ch. 9). With
+    r = k1 (c_A - c_B / K) and K(T*) = E2 X / (E1 (1 - X)) from dr/dT = 0, E2 = E1 - dH, integrate
+    dX/dt = r(X, T*(X)) with scipy."""
+    from scipy.integrate import solve_ivp
+    k_ref, T_ref, E1, K_ref, dH = 0.05, 400.0, 60e3, 10.0, -60e3
+    E2 = E1 - dH
+
+    def T_star(X):
+        if X <= 0:
+            return 500.0
+        inv_T = 1 / T_ref - (np.log(E2 * X / (E1 * (1 - X))) - np.log(K_ref)) * R / dH
+        return min(max(1 / inv_T, 300.0), 500.0) if inv_T > 0 else 500.0
+
+    def rate(t, y):
+        T = T_star(y[0])
+        k1 = k_ref * np.exp(-E1 / R * (1 / T - 1 / T_ref))
+        K = K_ref * np.exp(-dH / R * (1 / T - 1 / T_ref))
+        return [k1 * ((1 - y[0]) - y[0] / K)]
+
+    return float(solve_ivp(rate, (0, tau), [0.0], method="LSODA", rtol=1e-12, atol=1e-14).y[0, -1])
+
+
+@pytest.mark.slow
+def test_free_profile_reaches_the_optimal_temperature_progression():
+    best = optimal_progression_conversion()                           # 0.938601 (recomputed here)
+    res = optimize(study_from_toml(REVERSIBLE))
+    assert res.status == "optimal" and res.check.passed
+    X = res.metrics["conversion:A"]["value"]
+    assert X <= best + 2e-6                                           # no profile beats the progression
+    assert X == pytest.approx(best, abs=2e-5)
+    T = res.decisions["T"]["value"]
+    assert T[0] == pytest.approx(500.0, abs=1e-3) and T[-1] < T[0]    # hot at the inlet, falling
