@@ -27,7 +27,7 @@ def test_demo_study_loads_in_si():
     assert (tau.low, tau.high, tau.unit) == (60.0, 5400.0, "min")
     assert study.decision("ratio.O").high == 3.0
     assert [lim.text for lim in study.goal.limits] == ["conversion:A >= 0.80", "yield:C <= 0.10", "T <= 400 K"]
-    assert study.includes and study.includes[0][0].endswith("oxidation-network.toml")
+    assert study.includes and study.includes[0].ref == "oxidation-network.toml"
 
 
 def test_units_convert_and_offset_temperatures():

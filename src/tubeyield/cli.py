@@ -8,11 +8,13 @@ Exit codes (tubeyield.status): 0 done, 2 a mistake in the study or the command (
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import sys
 
 from tubeyield import __version__
 from tubeyield.errors import SolverOptionRefused, SolverUnavailable, StudyError
+from tubeyield.guard import TimeLimitReached, time_guard
 from tubeyield.status import EXIT_FAILED, EXIT_OK, EXIT_USER, SOLVED, exit_code
 
 
@@ -77,7 +79,12 @@ def _parser() -> argparse.ArgumentParser:
 def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     try:
-        return JOBS[args.job](args)
+        with contextlib.ExitStack() as guards:
+            _GUARDS.append(guards)
+            return JOBS[args.job](args)
+    except TimeLimitReached as exc:
+        print(f"error: {getattr(args, 'study', '')}: numerics.time_limit: {exc}", file=sys.stderr)
+        return EXIT_FAILED
     except StudyError as exc:
         print(f"error: {exc.line()}", file=sys.stderr)
         return EXIT_USER
@@ -97,14 +104,23 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("interrupted", file=sys.stderr)
         return 130
+    finally:
+        _GUARDS.clear()
 
 
-def _load(path: str, table: str | None = None, what: str = ""):
-    """The study at `path`; with `table`, one that has that table (a StudyError naming it otherwise)."""
+_GUARDS: list = []     # the running command's exit stack: _load arms the wall-time guard on it
+
+
+def _load(path: str, table: str | None = None, what: str = "", *, guard: bool = True, need=None):
+    """The study at `path`; with `table`, one that has that table (a StudyError naming it otherwise). Mistakes in
+    optional sections the job does not use are not errors (`need`: the sections it does use; default `table`).
+    Arms the command's wall-time guard (numerics.time_limit) unless `guard` is False."""
     from tubeyield.study import load_study
-    study = load_study(path)
+    study = load_study(path, need=need if need is not None else ((table,) if table else ()))
     if table is not None and getattr(study, table) is None:
         raise StudyError(table, f"a [{table}] table with {what}", file=path)
+    if guard and _GUARDS:
+        _GUARDS[-1].enter_context(time_guard(study.numerics.time_limit))
     return study
 
 
@@ -125,7 +141,7 @@ def _check(args) -> int:
     from tubeyield import api
     from tubeyield.chemistry.network import Network
 
-    study = api.load_study(args.study)
+    study = _load(args.study, need=("front", "window", "sweep"))
     report = api.check(study)
     net = Network.of(study)
     if args.json:
@@ -270,7 +286,7 @@ def _window(args) -> int:
 def _sweep(args) -> int:
     from tubeyield.jobs.sweep import sweep
 
-    study = _load(args.study, "sweep", "'vary'")
+    study = _load(args.study, "sweep", "'vary'", guard=False)
     _at_least(args.workers, "--workers", 1, "a number of processes")
     out = sweep(study, args.store, workers=args.workers, dask=args.dask, resume=args.resume, progress=not args.quiet)
     done = ", ".join(f"{v} {k}" for k, v in sorted(out.counts.items())) or "none"
@@ -289,7 +305,7 @@ def _sweep_report(args) -> int:
     from tubeyield.jobs.sweep_summary import summarize
     from tubeyield.report.files import write_json
 
-    study = _load(args.study) if args.study else None
+    study = _load(args.study, "sweep", "'vary'", guard=False) if args.study else None
     summary = summarize(args.store, study, workers=args.workers)
     if args.save:
         write_json(Path(args.save) / "sweep-summary.json", summary)

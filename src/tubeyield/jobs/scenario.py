@@ -73,7 +73,8 @@ class Scenario:
 
 def study_fingerprint(study: Study) -> str:
     """A hash of everything that defines the numbers (not file names, comments or the sweep spec)."""
-    core = dataclasses.replace(study, sweep=None, path="", source="", includes=(), front=None, window=None)
+    core = dataclasses.replace(study, sweep=None, path="", source="", includes=(), front=None, window=None,
+                               numerics=dataclasses.replace(study.numerics, time_limit=3600.0))
     return hashlib.sha256(repr(core).encode()).hexdigest()[:16]
 
 

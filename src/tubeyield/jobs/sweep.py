@@ -64,7 +64,7 @@ def run_scenario(study: Study, scenario: Scenario) -> dict:
     row = {"id": scenario.id, "idx": scenario.index, "inputs": scenario.as_dict(),
            "worker": f"{socket.gethostname()}:{os.getpid()}:{threading.get_ident() % 10000}"}
     try:
-        sc = apply_values(study, scenario.as_dict())
+        sc = _bounded(apply_values(study, scenario.as_dict()))
         _check_scenario(sc)
         run = study.sweep.run
         if run == "optimize":
@@ -81,6 +81,14 @@ def run_scenario(study: Study, scenario: Scenario) -> dict:
     return row
 
 
+def _bounded(sc: Study) -> Study:
+    """The scenario with every Ipopt solve bounded by sweep.time_limit (warm re-solves and cold starts alike)."""
+    import dataclasses
+    options = dict(sc.numerics.ipopt)
+    options["max_wall_time"] = min(float(sc.sweep.time_limit), float(options.get("max_wall_time", float("inf"))))
+    return dataclasses.replace(sc, numerics=dataclasses.replace(sc.numerics, ipopt=tuple(options.items())))
+
+
 def _check_scenario(sc: Study) -> None:
     """Sampled values can leave the physical range (a normal distribution has tails): say so, do not solve."""
     for r in sc.reactions:
@@ -94,6 +102,8 @@ def _check_scenario(sc: Study) -> None:
     for d in sc.decisions:
         if d.low > d.high or (d.si_unit in ("s", "K") and d.low <= 0):
             raise StudyError(f"operate.{d.name}", f"a positive value within its range; got {d.low:g}")
+    from tubeyield.study.load import check_damkohler
+    check_damkohler(sc.reactions, sc.feed, sc.decisions, sc.goal)
 
 
 def _optimize(base: Study, sc: Study, scenario: Scenario) -> dict:
@@ -104,7 +114,6 @@ def _optimize(base: Study, sc: Study, scenario: Scenario) -> dict:
     state = _state(base)
     model, solver = state.model, state.solver
     options = dict(sc.numerics.ipopt)
-    options.setdefault("max_wall_time", float(sc.sweep.time_limit))
     vec = _vector(base, scenario.as_dict())
     if state.memory:
         near = min(state.memory, key=lambda m: float(np.sum((m[0] - vec) ** 2)))
@@ -199,7 +208,7 @@ def sweep(study: Study, store_path, *, workers: int | None = None, dask: str | N
         raise StudyError("sweep", "a [sweep] table with 'vary'")
     t0 = time.perf_counter()
     all_scenarios = scenarios(study)
-    source = study.source + "".join(f"\n# --- {p}\n{t}" for p, t in study.includes)
+    source = study.sources_json()
     with Store(store_path) as store:
         store.bind(study_fingerprint(study), source, study.sweep.run, resume)
         done = store.done_ids()

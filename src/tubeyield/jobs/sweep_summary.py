@@ -17,9 +17,7 @@
 
 from __future__ import annotations
 
-import tempfile
-import tomllib
-from pathlib import Path
+from pathlib import PurePath
 
 import numpy as np
 
@@ -33,28 +31,25 @@ MAX_POOL = 12   # scenario optima added to the candidate pool
 
 
 def study_of_store(meta: dict) -> Study:
-    """Rebuild the study from the text the store keeps (the study and its included files)."""
-    from tubeyield.study import load_study
+    """Rebuild the study from the sources the store keeps, in memory: nothing read back from a store is written to
+    any path it names. Stores of earlier versions kept the study text with included files appended after
+    '# --- <path>' lines; those are read too, each include matched by its file name."""
+    from tubeyield.study import study_from_sources, study_from_text
+    from tubeyield.study.toml import parse_toml
     text = meta.get("study")
     if not text:
         raise StudyError("meta.study", "a store written by 'tubeyield sweep' (it keeps the study text)")
-    parts = text.split("\n# --- ")
-    main, includes = parts[0], parts[1:]
-    with tempfile.TemporaryDirectory() as tmp:
-        tmp = Path(tmp)
-        doc = tomllib.loads(main)
-        inc = doc.get("study", {}).get("include", [])
-        inc = [inc] if isinstance(inc, str) else inc
-        by_name = {}
-        for block in includes:
-            path, _, body = block.partition("\n")
-            by_name[Path(path).name] = body
-        for rel in inc:
-            target = tmp / rel
-            target.parent.mkdir(parents=True, exist_ok=True)
-            target.write_text(by_name.get(Path(rel).name, ""))
-        (tmp / "study.toml").write_text(main)
-        return load_study(tmp / "study.toml")
+    if text.lstrip().startswith("{"):
+        return study_from_sources(text)
+    main, *blocks = text.split("\n# --- ")
+    by_name = {}
+    for block in blocks:
+        path, _, body = block.partition("\n")
+        by_name[PurePath(path).name] = body
+    include = parse_toml(main).get("study", {}).get("include", [])
+    refs = [include] if isinstance(include, str) else include if isinstance(include, list) else []
+    return study_from_text(main, path="study.toml",
+                           includes={r: by_name.get(PurePath(r).name, "") for r in refs if isinstance(r, str)})
 
 
 def _user(study: Study, name: str, v):

@@ -35,11 +35,16 @@ def write_json(path: Path, obj) -> None:
 
 
 def save_inputs(directory: Path, study) -> None:
-    """The study text and included network files as read, so a report can be rebuilt and reproduced."""
-    directory = Path(directory)
-    write_atomic(directory / "inputs" / (Path(study.path).name or "study.toml"), study.source)
-    for path, text in study.includes:
-        write_atomic(directory / "inputs" / Path(path).name, text)
+    """The study text and included network files as read (under the names the study uses for them, which the
+    loader keeps inside the study's folder), and sources.json, from which the report rebuilds the study in memory."""
+    inputs = Path(directory) / "inputs"
+    write_atomic(inputs / (Path(study.path).name or "study.toml"), study.source)
+    for f in study.includes:
+        write_atomic(inputs / f.ref, f.text)
+    write_atomic(inputs / SOURCES, study.sources_json())
+
+
+SOURCES = "sources.json"
 
 
 def save_result(directory: Path, name: str, result, study) -> None:

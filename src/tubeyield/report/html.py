@@ -37,18 +37,21 @@ def _load_json(path: Path):
 
 
 def _study_from_inputs(result_dir: Path):
-    from tubeyield.study import load_study
-    inputs = result_dir / "inputs"
-    candidates = sorted(p for p in inputs.glob("*.toml")) if inputs.is_dir() else []
-    for p in candidates:
-        try:
-            text = p.read_text(encoding="utf-8")
-        except OSError:
-            continue
-        if "[goal]" in text:
-            return load_study(p), candidates
-    raise StudyError(str(inputs), "the study's inputs as saved by 'tubeyield optimize --save' (no study file with a "
-                                  "[goal] table found)")
+    """The study saved with the results (inputs/sources.json, rebuilt in memory), and its files as
+    [(name, text)] for the report's inputs section."""
+    from tubeyield.report.files import SOURCES
+    from tubeyield.study import study_from_sources
+    sources = result_dir / "inputs" / SOURCES
+    if not sources.is_file():
+        raise StudyError(str(result_dir / "inputs"), "the study's inputs as saved by --save (inputs/sources.json; "
+                                                     "results saved by an earlier version: run --save again)")
+    try:
+        document = sources.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise StudyError(str(sources), f"a readable file ({exc})") from None
+    study = study_from_sources(document)
+    files = [(Path(study.path).name, study.source)] + [(f.ref, f.text) for f in study.includes]
+    return study, files
 
 
 def build_report(result_dir, out_dir=None) -> Path:
@@ -56,7 +59,7 @@ def build_report(result_dir, out_dir=None) -> Path:
     result_dir = Path(result_dir)
     if not result_dir.is_dir():
         raise StudyError(str(result_dir), "a directory of saved results (from --save)")
-    study, input_files = _study_from_inputs(result_dir)
+    study, inputs = _study_from_inputs(result_dir)
     out = Path(out_dir) if out_dir else Path("reports") / study.name
     fig_dir, tab_dir = out / "figures", out / "tables"
     optimum = _load_json(result_dir / "optimum.json")
@@ -108,7 +111,6 @@ def build_report(result_dir, out_dir=None) -> Path:
     env = jinja2.Environment(loader=jinja2.FileSystemLoader(str(TEMPLATES)), autoescape=True,
                              undefined=jinja2.StrictUndefined)
     env.globals["fmt"] = fmt
-    inputs = [(p.name, p.read_text(encoding="utf-8")) for p in input_files]
     html = env.get_template("report.html").render(
         study=study, tool=f"tubeyield {__version__}",
         written=_dt.datetime.now().astimezone().strftime("%Y-%m-%d %H:%M %Z"),

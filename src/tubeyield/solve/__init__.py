@@ -18,7 +18,8 @@ def make_solver(numerics):
             raise StudyError("numerics.solver", "an 'ipopt' executable on PATH for solver = 'executable'; none found "
                                                 "(use solver = 'bundled' for the Ipopt in the casadi wheel)")
         return ExecutableIpopt()
-    return pyo.SolverFactory(NAME)
+    # every solve is bounded by the command's wall time (the job's own guard acts between solves)
+    return pyo.SolverFactory(NAME, options={"max_wall_time": float(numerics.time_limit)})
 
 
 class ExecutableIpopt:

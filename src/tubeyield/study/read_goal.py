@@ -5,6 +5,7 @@ from __future__ import annotations
 import difflib
 
 from tubeyield.errors import StudyError
+from tubeyield.study import caps
 from tubeyield.study.metric import parse_limit, parse_metric
 from tubeyield.study.schema import Feed, FrontSpec, Goal, Numerics, WindowSpec
 from tubeyield.study.toml import Table, number
@@ -61,6 +62,7 @@ def read_front(t: Table | None, symbols: set[str]) -> FrontSpec | None:
     if x == y:
         raise StudyError(t.key("y"), "a metric other than x")
     points = int(number(t.take("points", 21), t.key("points"), integer=True, low=3))
+    caps.at_most(points, caps.MAX_FRONT_POINTS, t.key("points"), "a number of front levels")
     senses = []
     for axis in ("x_sense", "y_sense"):
         v = t.take(axis, "max", types=str)
@@ -92,6 +94,9 @@ def read_window(t: Table | None, decisions) -> WindowSpec | None:
     if len(pts) != 2:
         raise StudyError(t.key("points"), f"[nx, ny] or one number, got {pts!r}")
     pts = tuple(int(number(p, f"{t.key('points')}[{i}]", integer=True, low=2)) for i, p in enumerate(pts))
+    for i, n in enumerate(pts):
+        caps.at_most(n, caps.MAX_WINDOW_POINTS, f"{t.key('points')}[{i}]", "a number of points per axis")
+    caps.at_most(pts[0] * pts[1], caps.MAX_WINDOW_CELLS, t.key("points"), "a number of map cells (nx times ny)")
     others = t.take("others", "optimum", types=str)
     if others not in ("optimum", "optimized"):
         raise StudyError(t.key("others"), f"'optimum' (others fixed at the optimum) or 'optimized' (re-optimized in "
@@ -112,14 +117,20 @@ def read_window(t: Table | None, decisions) -> WindowSpec | None:
 
 def read_numerics(t: Table) -> Numerics:
     starts = int(number(t.take("starts", 4), t.key("starts"), integer=True, low=1))
+    caps.at_most(starts, caps.MAX_STARTS, t.key("starts"), "a number of starting points")
     tol = number(t.take("check_tolerance", 1e-6), t.key("check_tolerance"))
     if not 0 < tol < 1:
         raise StudyError(t.key("check_tolerance"), f"a relative tolerance between 0 and 1, got {tol:g}")
     max_el = int(number(t.take("max_elements", 640), t.key("max_elements"), integer=True, low=1))
+    caps.at_most(max_el, caps.MAX_ELEMENTS, t.key("max_elements"), "a number of elements")
     solver = t.take("solver", "bundled", types=str)
     if solver not in ("bundled", "executable"):
         raise StudyError(t.key("solver"), f"'bundled' (the Ipopt in the casadi wheel) or 'executable' (an ipopt on "
                                           f"PATH), got {solver!r}")
+    time_limit = to_si(t.take("time_limit", "1 h"), "time", t.key("time_limit"))
+    if time_limit <= 0:
+        raise StudyError(t.key("time_limit"), f"a positive wall time for one command, got {t.data['time_limit']!r}")
+    caps.at_most(time_limit, caps.MAX_TIME_LIMIT, t.key("time_limit"), "a wall time (s)")
     ipopt = t.take("ipopt", {}, types=dict, what="a table of Ipopt options such as { max_iter = 500 }")
     from tubeyield.solve.options import user_option_problem
     for k, v in ipopt.items():
@@ -127,4 +138,4 @@ def read_numerics(t: Table) -> Numerics:
         if problem:
             raise StudyError(f"{t.key('ipopt')}.{k}", problem)
     t.close()
-    return Numerics(starts, tol, max_el, solver, tuple(ipopt.items()))
+    return Numerics(starts, tol, max_el, solver, tuple(ipopt.items()), time_limit)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 
 from tubeyield.errors import StudyError
+from tubeyield.study import caps
 from tubeyield.study.schema import Decision, Feed, Reactor
 from tubeyield.study.toml import Table, number
 from tubeyield.study.units import to_si, unit_text
@@ -93,10 +94,13 @@ def read_reactor(t: Table) -> Reactor:
     points = int(number(t.take("points", 3), t.key("points"), low=1, integer=True))
     if points > 10:
         raise StudyError(t.key("points"), f"1 to 10 collocation points per element, got {points}")
+    caps.at_most(elements, caps.MAX_ELEMENTS, t.key("elements"), "a number of elements")
     zones = int(number(t.take("zones", 1 if heat != "zones" else 4), t.key("zones"), low=1, integer=True))
     if heat != "zones" and t.has("zones"):
         raise StudyError(t.key("zones"), "only for heat = 'zones'")
     tanks = int(number(t.take("tanks", 1 if kind != "stirred-series" else 3), t.key("tanks"), low=1, integer=True))
+    caps.at_most(zones, caps.MAX_ZONES, t.key("zones"), "a number of zones")
+    caps.at_most(tanks, caps.MAX_TANKS, t.key("tanks"), "a number of tanks")
     if kind != "stirred-series" and t.has("tanks"):
         raise StudyError(t.key("tanks"), "only for kind = 'stirred-series'")
     U = t.take("U", None)

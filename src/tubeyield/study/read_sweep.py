@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from tubeyield.errors import StudyError
+from tubeyield.study import caps
 from tubeyield.study.schema import Study, SweepSpec
 from tubeyield.study.toml import Table, number
 from tubeyield.study.units import to_si
@@ -23,6 +24,12 @@ def read_sweep(t: Table | None, study: Study) -> SweepSpec | None:
     samples = int(number(t.take("samples", 0), t.key("samples"), integer=True, low=0))
     if sampled and samples < 1:
         raise StudyError(t.key("samples"), "the number of samples (>= 1) for the distributions in 'vary'")
+    caps.at_most(samples, caps.MAX_SCENARIOS, t.key("samples"), "a number of samples")
+    combinations = 1
+    for v in vary:
+        combinations *= len(v.values) if v.distribution is None else 1
+    caps.at_most(combinations * max(samples, 1), caps.MAX_SCENARIOS, vary_t.path,
+                 "a number of scenarios (grid combinations times samples)")
     seed = int(number(t.take("seed", 0), t.key("seed"), integer=True, low=0))
     run = t.take("run", "optimize", types=str)
     if run not in RUNS:
@@ -30,6 +37,9 @@ def read_sweep(t: Table | None, study: Study) -> SweepSpec | None:
     if run == "front" and study.front is None:
         raise StudyError(t.key("run"), "a [front] table for run = 'front'")
     time_limit = to_si(t.take("time_limit", "300 s"), "time", t.key("time_limit"))
+    if time_limit <= 0:
+        raise StudyError(t.key("time_limit"), f"a positive time per scenario, got {t.data['time_limit']!r}")
+    caps.at_most(time_limit, caps.MAX_TIME_LIMIT, t.key("time_limit"), "a time per scenario (s)")
     share = number(t.take("share", 0.95), t.key("share"))
     if not 0 < share <= 1:
         raise StudyError(t.key("share"), f"a share between 0 and 1, got {share:g}")
@@ -51,6 +61,7 @@ def read_sweep(t: Table | None, study: Study) -> SweepSpec | None:
                 raise StudyError(ct.key(d.name), "a value for every decision with a range; the key is missing")
         ct.close(tuple(d.name for d in study.decisions))
         candidates.append((name, tuple(values.items())))
+    caps.at_most(len(candidates), caps.MAX_CANDIDATES, cand_t.path, "a number of candidates")
     cand_t.seen.update(cand_t.data)
     if run == "evaluate" and not candidates and any(not d.fixed for d in study.decisions):
         raise StudyError(t.key("candidates"), "named operating points to evaluate (run = 'evaluate'), or a study "

@@ -232,6 +232,15 @@ class Numerics:
     max_elements: int = 640
     solver: str = "bundled"       # bundled (casadi's Ipopt) | executable (an ipopt on PATH)
     ipopt: tuple[tuple[str, object], ...] = ()
+    time_limit: float = 3600.0    # s: wall time of one command (each Ipopt solve, and the whole job)
+
+
+@dataclass(frozen=True)
+class SourceFile:
+    """A file the study was read from: an include as the study names it (relative to the study's folder) and its
+    text. The study's own text is `Study.source`."""
+    ref: str
+    text: str
 
 
 @dataclass(frozen=True)
@@ -250,11 +259,20 @@ class Study:
     description: str = ""
     path: str = ""
     source: str = ""              # the study text as read, for reports that reproduce
-    includes: tuple[tuple[str, str], ...] = ()   # (path, text) of included network files
+    includes: tuple[SourceFile, ...] = ()        # included network files, as the study names them
+    section_errors: tuple = field(default=(), compare=False, repr=False)  # (section, StudyError) not read
 
     @property
     def symbols(self) -> tuple[str, ...]:
         return tuple(s.symbol for s in self.species)
+
+    def sources_json(self) -> str:
+        """The study's text and its includes as one JSON document (kept by sweep stores and saved inputs), from
+        which `study.study_from_sources` rebuilds the study in memory."""
+        import json
+        from pathlib import PurePath
+        return json.dumps({"name": PurePath(self.path).name or "study.toml", "study": self.source,
+                           "includes": {f.ref: f.text for f in self.includes}})
 
     def decision(self, name: str) -> Decision:
         for d in self.decisions:

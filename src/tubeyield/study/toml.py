@@ -74,14 +74,28 @@ def number(value, key: str, *, low: float | None = None, integer: bool = False) 
     return float(value)
 
 
-def read_toml(path: Path) -> tuple[dict, str]:
+def read_text(path: Path, what: str = "study file") -> str:
+    """A UTF-8 text file of at most caps.MAX_FILE_BYTES; a StudyError naming the file otherwise."""
+    from tubeyield.study.caps import MAX_FILE_BYTES
     try:
-        text = path.read_text(encoding="utf-8")
+        if path.is_file() and path.stat().st_size > MAX_FILE_BYTES:
+            raise StudyError("", f"a {what} of at most {MAX_FILE_BYTES:,} bytes, this one has "
+                                 f"{path.stat().st_size:,}", file=str(path))
+        return path.read_text(encoding="utf-8")
     except FileNotFoundError:
-        raise StudyError("", "an existing study file; no such file", file=str(path)) from None
+        raise StudyError("", f"an existing {what}; no such file", file=str(path)) from None
+    except IsADirectoryError:
+        raise StudyError("", f"a {what}, not a directory", file=str(path)) from None
     except (OSError, UnicodeDecodeError) as exc:
         raise StudyError("", f"a readable UTF-8 text file ({exc.__class__.__name__}: {exc})", file=str(path)) from None
+
+
+def parse_toml(text: str) -> dict:
+    """TOML text -> dict. Nesting deep enough to exhaust the parser's recursion is a StudyError, not a crash."""
     try:
-        return tomllib.loads(text), text
+        return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        raise StudyError("", f"valid TOML ({exc})", file=str(path)) from None
+        raise StudyError("", f"valid TOML ({exc})") from None
+    except RecursionError:
+        raise StudyError("", "valid TOML nested at most a few hundred levels deep (this text nests arrays or "
+                             "tables deeper than the parser can follow)") from None

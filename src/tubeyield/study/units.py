@@ -36,6 +36,24 @@ KINDS: dict[str, tuple[str, str]] = {
     "dimensionless": ("", "a plain number such as 0.5"),
 }
 
+# Magnitudes no study needs, refused where they are read: beyond them the kinetics overflow or the integrator hangs
+# (a temperature of 1e308 K made exp() of the Arrhenius term infinite). The largest |value| of each kind, in SI;
+# signs are checked where the key is read.
+MAGNITUDE_CAPS: dict[str, float] = {
+    "time": 1e9,                  # s (about 30 years)
+    "temperature": 1e4,           # K
+    "concentration": 1e6,         # mol/m^3 (1000 mol/L)
+    "flow": 1e6,                  # m^3/s
+    "molar_energy": 1e7,          # J/mol (10,000 kJ/mol)
+    "molar_heat_capacity": 1e5,   # J/(mol K)
+    "pressure": 1e9,              # Pa (10 kbar)
+    "molar_mass": 1e3,            # kg/mol
+    "length": 1e4,                # m
+    "heat_transfer": 1e12,        # W/(m^2 K) (1e9 is used to approach an isothermal wall)
+    "volume": 1e9,                # m^3
+    "dimensionless": 1e12,
+}
+
 _NUMBER_UNIT = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
 
 
@@ -75,7 +93,11 @@ def to_si(value, kind: str, key: str) -> float:
     target = _unit(si_unit)
     if q.dimensionality != target.dimensionality:
         raise StudyError(key, f"{example}; got {value!r}, which has dimension {_dims(q)}")
-    return _clean(float(q.to(target).magnitude))
+    si = _clean(float(q.to(target).magnitude))
+    if abs(si) > MAGNITUDE_CAPS[kind]:
+        raise StudyError(key, f"{example}, of magnitude at most {MAGNITUDE_CAPS[kind]:g} {si_unit}".rstrip()
+                              + f" (tubeyield's cap); got {value!r}")
+    return si
 
 
 def _clean(x: float) -> float:
