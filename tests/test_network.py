@@ -1,9 +1,10 @@
-"""Network checks: stoichiometric consistency by LP/MILP (Gevorgyan, Poolman and Fell, Bioinformatics 24 (2008)
+"""Network checks: stoichiometric consistency by LP and irreducible infeasible subsets (Gevorgyan, Poolman and Fell, Bioinformatics 24 (2008)
 2245), exact element balances, reachability from the feed."""
 
 import subprocess
 import sys
 
+import numpy as np
 import pytest
 
 from helpers import SCENARIOS
@@ -24,27 +25,74 @@ def test_demo_network_is_valid():
     assert np.allclose(net.matrix.T @ m, 0, atol=1e-9) and (m >= 1 - 1e-9).all()
 
 
-def test_unbalanced_reaction_is_located(base_doc):
-    # r2 "B -> 2 C" together with r1 "A -> B" and r3 "A -> C" cannot conserve mass: m_A = m_B = 2 m_C = m_C.
-    # Relaxing r2 alone (or r3 alone) restores consistency, so the smallest faulty set has one reaction.
+def _masses_exist(N) -> bool:
+    """Independent of HiGHS: scipy.optimize.linprog on N^T m = 0, m >= 1."""
+    from scipy.optimize import linprog
+    res = linprog(np.ones(N.shape[0]), A_eq=N.T, b_eq=np.zeros(N.shape[1]), bounds=[(1, 1e4)] * N.shape[0],
+                  method="highs")
+    return res.status == 0
+
+
+def _assert_irreducible(net, faulty):
+    cols = [net.reaction_ids.index(r) for r in faulty]
+    assert not _masses_exist(net.matrix[:, cols])                       # these cannot conserve mass together
+    for k in cols:                                                      # any one of them removed, the rest can
+        assert _masses_exist(net.matrix[:, [c for c in cols if c != k]])
+
+
+def test_unbalanced_reactions_are_located_together(base_doc):
+    # r1 "A -> B", r2 "B -> 2 C" and r3 "A -> C" cannot conserve mass: m_A = m_B = 2 m_C = m_C. Any two of them can:
+    # the fault is all three, and all three are named (the smallest set to relax, one reaction, named only one).
     base_doc["reaction"][1]["equation"] = "B -> 2 C"
     base_doc["reaction"].append({"id": "r3", "equation": "A -> C", "k": "0.01 1/s"})
     for s in base_doc["species"].values():
         s.pop("formula")
     study = study_from_dict(base_doc)
-    consistent, _, faulty = stoichiometric_consistency(Network.of(study))
+    net = Network.of(study)
+    consistent, _, faulty = stoichiometric_consistency(net)
     assert not consistent
-    assert len(faulty) == 1 and faulty[0] in ("r2", "r3")
+    assert sorted(faulty) == ["r1", "r2", "r3"]
+    _assert_irreducible(net, faulty)
+    assert "r1, r2, r3" in " ".join(check_network(study).errors())
 
 
-def test_each_reaction_of_a_fault_is_named_when_it_alone_breaks(base_doc):
-    # A -> B, B -> C, C -> A consistent; adding "A -> 2 A + B"-like creation: r4 "C -> A + B" breaks only with r4.
+def test_an_irreducible_fault_among_consistent_reactions(base_doc):
+    # A -> B, B -> C, C -> A are consistent; "C -> A + B" breaks them. Irreducible sets: {cyc, bad} (m_C = m_A
+    # and m_C = m_A + m_B) or {r1, r2, bad}; either is a correct answer, and it must be irreducible.
     base_doc["reaction"].append({"id": "cyc", "equation": "C -> A", "k": "0.01 1/s"})
     base_doc["reaction"].append({"id": "bad", "equation": "C -> A + B", "k": "0.01 1/s"})
     for s in base_doc["species"].values():
         s.pop("formula")
-    consistent, _, faulty = stoichiometric_consistency(Network.of(study_from_dict(base_doc)))
-    assert not consistent and faulty == ("bad",)
+    net = Network.of(study_from_dict(base_doc))
+    consistent, _, faulty = stoichiometric_consistency(net)
+    assert not consistent and "bad" in faulty
+    assert set(faulty) in ({"cyc", "bad"}, {"r1", "r2", "bad"})
+    _assert_irreducible(net, faulty)
+
+
+def test_mass_balance_mixes_formulas_and_molar_masses(base_doc):
+    # A has a formula (C2H4, 28.05 g/mol), B only a molar mass: r1 "A -> B" with 30 g/mol cannot balance.
+    base_doc["species"]["B"].pop("formula")
+    base_doc["species"]["B"]["molar_mass"] = "30 g/mol"
+    report = check_network(study_from_dict(base_doc))
+    assert any("reaction r1" in e and "molar masses do not balance" in e for e in report.mass_errors), report.errors()
+    assert not report.valid
+    # with the formula's own mass (standard atomic weights: 2 x 12.011 + 4 x 1.008 = 28.054 g/mol) it balances
+    base_doc["species"]["B"]["molar_mass"] = "28.054 g/mol"
+    base_doc["species"]["C"].pop("formula")
+    base_doc["species"]["C"]["molar_mass"] = "28.054 g/mol"
+    assert check_network(study_from_dict(base_doc)).valid
+
+
+def test_independent_reactions_of_a_large_chain_are_found_quickly():
+    # a chain of 400 first-order steps plus one repeated step: rank 400, the repeat is dependent
+    N = np.zeros((401, 401))
+    for j in range(400):
+        N[j, j], N[j + 1, j] = -1, 1
+    N[:, 400] = N[:, 3]
+    net = Network(tuple(f"S{i}" for i in range(401)), tuple(f"r{j}" for j in range(401)), N)
+    assert net.independent_reactions() == tuple(f"r{j}" for j in range(400))
+    assert net.rank == 400
 
 
 def test_element_balance_names_reaction_and_element(base_doc):

@@ -1,21 +1,28 @@
 """Linear-programming checks of a reaction network, solved with HiGHS (highspy).
 
 Stoichiometric (mass) consistency: a network is consistent when strictly positive species masses m exist with
-N^T m = 0, i.e. every reaction conserves mass. We solve the LP  min sum m  s.t. N^T m = 0, 1 <= m <= M.
-When it is infeasible, a mixed-integer program finds the fewest reactions whose balance must be relaxed for masses
-to exist: those reactions are reported as the fault.
+N^T m = 0, i.e. every reaction conserves mass. We solve the sparse LP  min sum m  s.t. N^T m = 0, 1 <= m <= M.
+When it is infeasible, HiGHS computes an irreducible infeasible subset (IIS) of its rows: reactions that cannot
+conserve mass together, while any one of them removed leaves the rest consistent. All of them are named (another
+such set may exist as well; mending this one and checking again finds it).
+
+Masses: a species' molar mass is the one given, or its formula's (standard atomic weights from the periodictable
+package, after IUPAC/CIAAW); every reaction whose species all have a mass is checked against them, formulas and
+given masses mixed, and a reaction whose species all have formulas is also balanced element by element, exactly.
 
 References
 ----------
 A. Gevorgyan, M. G. Poolman and D. A. Fell, "Detection of stoichiometric inconsistencies in biomolecular models",
-Bioinformatics 24(19) (2008) 2245-2251: the LP test for positive conserved masses and the use of mixed-integer
-programming to locate the smallest inconsistent parts.
+Bioinformatics 24(19) (2008) 2245-2251: the LP test for positive conserved masses and locating inconsistent parts.
+J. W. Chinneck, Feasibility and Infeasibility in Optimization, Springer 2008, ch. 6-7: irreducible infeasible
+subsets of linear programs.
 Element balances from formulas are exact integer arithmetic (common practice).
 """
 
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import os
 from dataclasses import dataclass, field
 from fractions import Fraction
@@ -27,7 +34,6 @@ from tubeyield.chemistry.network import Network, reactions_that_cannot_start
 from tubeyield.study.schema import Study
 
 MASS_UPPER = 1.0e4      # masses are sought in [1, MASS_UPPER]: any positive solution can be scaled into it
-SLACK_UPPER = 1.0e6
 
 
 @dataclass
@@ -47,7 +53,8 @@ class CheckReport:
         out = []
         if self.consistent is False:
             out.append("stoichiometrically inconsistent: no positive species masses conserve mass in every reaction; "
-                       f"smallest set of reactions at fault: {', '.join(self.faulty_reactions) or '(not located)'}")
+                       "these reactions cannot conserve mass together, and any one of them removed, the rest can: "
+                       f"{', '.join(self.faulty_reactions) or '(not located)'}")
         return out + self.element_errors + self.mass_errors
 
 
@@ -83,67 +90,54 @@ def _fd1_to_devnull():
         os.close(devnull)
 
 
-def _solve(cost, lower, upper, A, row_lower, row_upper, integer=()):
-    """min cost.x s.t. row_lower <= A x <= row_upper, lower <= x <= upper (x[integer] integer). Returns (status, x)."""
-    import highspy
-    A = np.asarray(A, dtype=float)
-    n_row, n_col = A.shape
-    lp = highspy.HighsLp()
-    lp.num_col_, lp.num_row_ = n_col, n_row
-    lp.col_cost_ = np.asarray(cost, float)
-    lp.col_lower_, lp.col_upper_ = np.asarray(lower, float), np.asarray(upper, float)
-    lp.row_lower_, lp.row_upper_ = np.asarray(row_lower, float), np.asarray(row_upper, float)
-    start, index, value = [0], [], []
-    for j in range(n_col):
-        nz = np.nonzero(A[:, j])[0]
-        index += nz.tolist()
-        value += A[nz, j].tolist()
-        start.append(len(index))
-    lp.a_matrix_.format_ = highspy.MatrixFormat.kColwise
-    lp.a_matrix_.start_ = np.array(start, dtype=np.int32)
-    lp.a_matrix_.index_ = np.array(index, dtype=np.int32)
-    lp.a_matrix_.value_ = np.array(value, dtype=float)
-    if integer:
-        kinds = [highspy.HighsVarType.kContinuous] * n_col
-        for j in integer:
-            kinds[j] = highspy.HighsVarType.kInteger
-        lp.integrality_ = kinds
+def _consistency_lp(N: np.ndarray):
+    """HiGHS holding  min sum m  s.t. N^T m = 0 (one row per reaction), 1 <= m <= MASS_UPPER, built sparse."""
+    n_sp, n_rx = N.shape
     h = _highs()
-    h.passModel(lp)
-    h.run()
-    status = h.getModelStatus()
-    if status == highspy.HighsModelStatus.kOptimal:
-        return "optimal", np.array(h.getSolution().col_value)
-    if status == highspy.HighsModelStatus.kInfeasible:
-        return "infeasible", None
-    return h.modelStatusToString(status), None
+    h.addVars(n_sp, np.ones(n_sp), np.full(n_sp, MASS_UPPER))
+    h.changeColsCost(n_sp, np.arange(n_sp, dtype=np.int32), np.ones(n_sp))
+    for j in range(n_rx):
+        idx = np.nonzero(N[:, j])[0].astype(np.int32)
+        h.addRow(0.0, 0.0, len(idx), idx, N[idx, j].astype(float))
+    return h
 
 
 def stoichiometric_consistency(net: Network) -> tuple[bool, dict[str, float], tuple[str, ...]]:
-    """(consistent, masses, smallest set of faulty reactions) by the LP and MILP described in the module docstring."""
-    N = net.matrix
-    n_sp, n_rx = N.shape
-    status, m = _solve(np.ones(n_sp), np.ones(n_sp), np.full(n_sp, MASS_UPPER), N.T, np.zeros(n_rx), np.zeros(n_rx))
-    if status == "optimal":
-        return True, dict(zip(net.species, m.tolist())), ()
-    # Locate: N^T m + p - q = 0 with p, q <= SLACK_UPPER * y_j, y binary; minimize the number of relaxed reactions.
-    # Columns: m (n_sp), p (n_rx), q (n_rx), y (n_rx).
-    I = np.eye(n_rx)
-    Z = np.zeros((n_rx, n_rx))
-    balance = np.hstack([N.T, I, -I, Z])
-    link_p = np.hstack([np.zeros((n_rx, n_sp)), I, Z, -SLACK_UPPER * I])
-    link_q = np.hstack([np.zeros((n_rx, n_sp)), Z, I, -SLACK_UPPER * I])
-    A = np.vstack([balance, link_p, link_q])
-    rl = np.concatenate([np.zeros(n_rx), np.full(2 * n_rx, -np.inf)])
-    ru = np.zeros(3 * n_rx)
-    cost = np.concatenate([np.zeros(n_sp + 2 * n_rx), np.ones(n_rx)])
-    lower = np.concatenate([np.ones(n_sp), np.zeros(3 * n_rx)])
-    upper = np.concatenate([np.full(n_sp, MASS_UPPER), np.full(2 * n_rx, SLACK_UPPER), np.ones(n_rx)])
-    status, x = _solve(cost, lower, upper, A, rl, ru, integer=range(n_sp + 2 * n_rx, n_sp + 3 * n_rx))
-    if status != "optimal":
-        return False, {}, ()
-    y = x[n_sp + 2 * n_rx:]
-    return False, {}, tuple(rid for rid, v in zip(net.reaction_ids, y) if v > 0.5)
+    """(consistent, masses, an irreducible set of reactions at fault) by the LP and IIS of the module docstring."""
+    import highspy
+    h = _consistency_lp(net.matrix)
+    h.run()
+    status = h.getModelStatus()
+    if status == highspy.HighsModelStatus.kOptimal:
+        return True, dict(zip(net.species, np.array(h.getSolution().col_value).tolist())), ()
+    if status != highspy.HighsModelStatus.kInfeasible:
+        raise RuntimeError(f"HiGHS could not decide the consistency LP: {h.modelStatusToString(status)}")
+    return False, {}, irreducible_inconsistent_set(net)
+
+
+def irreducible_inconsistent_set(net: Network) -> tuple[str, ...]:
+    """Reactions forming an irreducible infeasible subset of the consistency LP. HiGHS's IIS finder (row priority)
+    narrows the search; a deletion filter over its rows (Chinneck, ch. 6: drop each reaction in turn, keep it
+    dropped while the rest stays infeasible) makes the set irreducible (HiGHS's set need not be: measured, it
+    returned three reactions of which two were already inconsistent)."""
+    h = _consistency_lp(net.matrix)
+    h.setOptionValue("iis_strategy", 2)
+    h.run()
+    status, iis = h.getIis()
+    rows = sorted(set(int(i) for i in iis.row_index_)) if iis.valid_ else []
+    keep = rows if rows and _infeasible(net.matrix[:, rows]) else list(range(net.matrix.shape[1]))
+    for j in list(keep):
+        trial = [k for k in keep if k != j]
+        if trial and _infeasible(net.matrix[:, trial]):
+            keep = trial
+    return tuple(net.reaction_ids[j] for j in keep)
+
+
+def _infeasible(N: np.ndarray) -> bool:
+    import highspy
+    h = _consistency_lp(N)
+    h.run()
+    return h.getModelStatus() == highspy.HighsModelStatus.kInfeasible
 
 
 def element_balance(study: Study) -> list[str]:
@@ -168,9 +162,23 @@ def element_balance(study: Study) -> list[str]:
     return errors
 
 
+def species_masses(study: Study) -> dict[str, float]:
+    """Molar mass of each species that has one, in kg/mol: the given molar_mass, or its formula's."""
+    import periodictable
+    out = {}
+    for sp in study.species:
+        if sp.molar_mass:
+            out[sp.symbol] = sp.molar_mass
+        elif sp.formula:
+            counts = parse_formula(sp.formula, f"species.{sp.symbol}.formula")
+            out[sp.symbol] = sum(n * periodictable.elements.symbol(el).mass for el, n in counts.items()) / 1000.0
+    return out
+
+
 def molar_mass_balance(study: Study, rel_tol: float = 1e-3) -> list[str]:
-    """Mass balance from molar masses, for reactions whose species have molar masses but not all formulas."""
-    mm = {s.symbol: s.molar_mass for s in study.species if s.molar_mass}
+    """Mass balance of every reaction whose species all have a molar mass (given, or from the formula), unless all
+    have formulas (then the exact element balance decides)."""
+    mm = species_masses(study)
     has_formula = {s.symbol for s in study.species if s.formula}
     errors = []
     for r in study.reactions:
@@ -206,6 +214,12 @@ def check_network(study: Study) -> CheckReport:
             if n == 0 and s in dict(r.reactants):
                 report.warnings.append(f"reaction {r.id} is zero order in its reactant {s}: its rate does not fall "
                                        "as the reactant is used up, so the model holds only while it lasts")
+    masses = species_masses(dataclasses.replace(study, species=tuple(dataclasses.replace(sp, molar_mass=None)
+                                                                    for sp in study.species)))
+    for sp in study.species:
+        if sp.molar_mass and sp.symbol in masses and abs(sp.molar_mass - masses[sp.symbol]) > 0.01 * sp.molar_mass:
+            report.warnings.append(f"species {sp.symbol}: molar_mass {sp.molar_mass * 1e3:.5g} g/mol differs from its "
+                                   f"formula's {masses[sp.symbol] * 1e3:.5g} g/mol; the given molar_mass is used")
     missing = [s.symbol for s in study.species if not s.formula]
     if missing and len(missing) < len(study.species):
         report.warnings.append(f"no formula for {', '.join(missing)}: element balances skipped where they take part")

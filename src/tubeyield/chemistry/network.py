@@ -32,12 +32,21 @@ class Network:
         return int(np.linalg.matrix_rank(self.matrix)) if self.matrix.size else 0
 
     def independent_reactions(self) -> tuple[str, ...]:
-        """A largest set of reactions with linearly independent stoichiometry, chosen in the order written."""
+        """A largest set of reactions with linearly independent stoichiometry, chosen in the order written:
+        each column is kept when its component orthogonal to the columns kept so far (Gram-Schmidt, applied twice
+        for stability) is not negligible, the tolerance matching numpy's matrix_rank."""
         chosen: list[int] = []
+        basis = np.zeros((self.matrix.shape[0], 0))
+        scale = float(np.max(np.abs(self.matrix))) if self.matrix.size else 1.0
+        tol = max(self.matrix.shape) * np.finfo(float).eps * max(scale, 1.0) * 10
         for j in range(self.matrix.shape[1]):
-            trial = chosen + [j]
-            if np.linalg.matrix_rank(self.matrix[:, trial]) == len(trial):
-                chosen = trial
+            v = self.matrix[:, j].astype(float)
+            for _ in range(2):
+                v = v - basis @ (basis.T @ v)
+            norm = float(np.linalg.norm(v))
+            if norm > tol:
+                basis = np.column_stack([basis, v / norm])
+                chosen.append(j)
         return tuple(self.reaction_ids[j] for j in chosen)
 
     def untouched_species(self) -> tuple[str, ...]:
