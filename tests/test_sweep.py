@@ -235,7 +235,7 @@ def _free_port() -> int:
 class DaskCluster:
     """A real `dask scheduler` and worker processes on 127.0.0.1."""
 
-    def __init__(self, tmp, n_workers=2):
+    def __init__(self, tmp, n_workers=2, nanny=False):
         self.port = _free_port()
         self.address = f"tcp://127.0.0.1:{self.port}"
         self.procs = []
@@ -244,12 +244,20 @@ class DaskCluster:
             [sys.executable, "-m", "distributed.cli.dask_scheduler", "--host", "127.0.0.1", "--port",
              str(self.port), "--no-dashboard"], stdout=self.log, stderr=subprocess.STDOUT, start_new_session=True))
         self.workers = []
+        self.nanny = nanny
         for _ in range(n_workers):
-            w = subprocess.Popen([sys.executable, "-m", "distributed.cli.dask_worker", self.address, "--nthreads", "1",
-                                  "--no-nanny", "--no-dashboard", "--death-timeout", "60"],
-                                 stdout=self.log, stderr=subprocess.STDOUT, start_new_session=True)
-            self.procs.append(w)
-            self.workers.append(w)
+            self.add_worker()
+        self.wait_for(n_workers)
+
+    def add_worker(self):
+        w = subprocess.Popen([sys.executable, "-m", "distributed.cli.dask_worker", self.address, "--nthreads", "1",
+                              "--nanny" if self.nanny else "--no-nanny", "--no-dashboard", "--death-timeout", "60"],
+                             stdout=self.log, stderr=subprocess.STDOUT, start_new_session=True)
+        self.procs.append(w)
+        self.workers.append(w)
+        return w
+
+    def wait_for(self, n_workers):
         from distributed import Client
         t0 = time.time()
         with Client(self.address, timeout=60) as c:
@@ -257,6 +265,12 @@ class DaskCluster:
                 if time.time() - t0 > 90:
                     raise AssertionError("Dask workers did not start")
                 time.sleep(0.2)
+
+    def worker_pids(self):
+        """Process ids of the worker processes themselves (with a nanny: the nanny's children)."""
+        if not self.nanny:
+            return [w.pid for w in self.workers if w.poll() is None]
+        return [pid for w in self.workers for pid in _children(w.pid)]
 
     def close(self):
         for p in reversed(self.procs):
@@ -337,3 +351,178 @@ def test_sweep_report_summarizes_and_the_report_shows_it(tmp_path, reference_run
     assert r.returncode == 0, r.stderr
     html = (tmp_path / "rep" / "index.html").read_text()
     assert 'id="sweep"' in html and "Spearman" in html and "share of scenarios meeting every limit" in html
+
+
+# ------------------------------------------------------------------------------------------ faults lose nothing
+
+
+def _children(pid: int) -> list[int]:
+    out = []
+    for entry in Path("/proc").iterdir():
+        if entry.name.isdigit():
+            try:
+                fields = (entry / "stat").read_text().rsplit(")", 1)[1].split()
+            except OSError:
+                continue
+            if int(fields[1]) == pid and fields[0] != "Z":
+                out.append(int(entry.name))
+    return out
+
+
+def _alive(pid: int) -> bool:
+    try:
+        state = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0]
+    except OSError:
+        return False
+    return state != "Z"
+
+
+@pytest.mark.slow
+def test_sigkill_of_the_main_process_leaves_no_worker(tmp_path):
+    study = write_study(tmp_path)
+    store = tmp_path / "s.sqlite"
+    proc = subprocess.Popen(_sweep_cmd(study, store, "--workers", "2"), stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True, start_new_session=True, env=_env())
+    try:
+        _wait_for_rows(store, 2, proc)
+        workers = [c for c in _children(proc.pid) if "tubeyield" in Path(f"/proc/{c}/cmdline").read_text()
+                   or "multiprocessing" in Path(f"/proc/{c}/cmdline").read_text()]
+        assert workers, "no worker processes found"
+        os.kill(proc.pid, signal.SIGKILL)             # the main process alone: its workers are orphaned
+        proc.wait(timeout=30)
+        t0 = time.time()
+        while any(_alive(w) for w in workers) and time.time() - t0 < 10:
+            time.sleep(0.2)
+        assert not any(_alive(w) for w in workers), "worker processes outlived their sweep"
+    finally:
+        for w in _children(proc.pid):
+            os.kill(w, signal.SIGKILL)
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+
+
+@pytest.fixture
+def nanny_cluster(tmp_path):
+    cluster = DaskCluster(tmp_path, nanny=True)
+    try:
+        yield cluster
+    finally:
+        cluster.close()
+
+
+@pytest.mark.slow
+def test_a_worker_restarted_by_its_nanny_loses_nothing(tmp_path, nanny_cluster, reference_run):
+    study = write_study(tmp_path)
+    store = tmp_path / "d.sqlite"
+    proc = subprocess.Popen(_sweep_cmd(study, store, "--dask", nanny_cluster.address), stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True, start_new_session=True, env=_env())
+    try:
+        _wait_for_rows(store, 6, proc)
+        os.kill(nanny_cluster.worker_pids()[0], signal.SIGKILL)     # the nanny starts a new worker
+        out, err = proc.communicate(timeout=600)
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+    assert proc.returncode == 0, err
+    rows = _rows(store)
+    _same(rows, reference_run)                                       # every scenario optimal, once
+    assert {v[0] for v in rows.values()} == {"optimal"}
+
+
+@pytest.mark.slow
+def test_losing_every_worker_stops_without_marking_anything_and_resume_finishes(tmp_path, reference_run):
+    study = write_study(tmp_path)
+    store = tmp_path / "d.sqlite"
+    cluster = DaskCluster(tmp_path, n_workers=1)
+    try:
+        proc = subprocess.Popen(_sweep_cmd(study, store, "--dask", cluster.address, "--worker-wait", "5"),
+                                stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, start_new_session=True,
+                                env=_env())
+        try:
+            _wait_for_rows(store, 4, proc)
+            os.killpg(cluster.workers[0].pid, signal.SIGKILL)        # the only worker
+            out, err = proc.communicate(timeout=300)
+        finally:
+            if proc.poll() is None:
+                os.killpg(proc.pid, signal.SIGKILL)
+        assert proc.returncode == 1 and "Traceback" not in err
+        assert "--resume" in err and "no worker" in err
+        rows = _rows(store)
+        assert 4 <= len(rows) < 40 and {v[0] for v in rows.values()} == {"optimal"}   # nothing marked failed
+        cluster.add_worker()
+        cluster.wait_for(1)
+        r = subprocess.run(_sweep_cmd(study, store, "--dask", cluster.address, "--resume"), capture_output=True,
+                           text=True, timeout=600)
+        assert r.returncode == 0, r.stderr
+        _same(_rows(store), reference_run)
+    finally:
+        cluster.close()
+
+
+def _digest(path: Path) -> str:
+    import hashlib
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def test_a_damaged_store_is_refused_and_left_untouched(tmp_path):
+    study = write_study(tmp_path, samples=3)
+    store = tmp_path / "s.sqlite"
+    r = subprocess.run(_sweep_cmd(study, store, "--workers", "1"), capture_output=True, text=True, timeout=600)
+    assert r.returncode == 0, r.stderr
+    data = bytearray(store.read_bytes())
+    assert len(data) >= 3 * 4096
+    db = sqlite3.connect(str(store))
+    page = db.execute("SELECT rootpage FROM sqlite_master WHERE name = 'scenarios'").fetchone()[0]
+    db.close()
+    data[(page - 1) * 4096 + 8:page * 4096] = b"\xff" * (4096 - 8)   # the scenarios table's page, in the middle
+    store.write_bytes(bytes(data))
+    for target in (store, tmp_path / "not-a-store.sqlite"):
+        if target.name.startswith("not"):
+            target.write_text("this is not a database, but some text of a good length " * 100)
+        before = _digest(target)
+        r = subprocess.run(_sweep_cmd(study, target, "--resume"), capture_output=True, text=True, timeout=120)
+        assert r.returncode == 2 and "Traceback" not in r.stderr, r.stderr
+        lines = r.stderr.strip().splitlines()
+        assert len(lines) == 1 and lines[0].startswith(f"error: {target}") and "untouched" in lines[0], r.stderr
+        assert _digest(target) == before
+
+
+def test_a_folder_as_store_is_one_error_line(tmp_path):
+    study = write_study(tmp_path, samples=3)
+    folder = tmp_path / "results"
+    folder.mkdir()
+    r = subprocess.run(_sweep_cmd(study, folder), capture_output=True, text=True, timeout=120)
+    assert r.returncode == 2 and r.stderr.count("\n") == 1 and "folder" in r.stderr, r.stderr
+
+
+def _mount_tmpfs(where: Path, size: str) -> bool:
+    where.mkdir()
+    r = subprocess.run(["mount", "-t", "tmpfs", "-o", f"size={size}", "tmpfs", str(where)], capture_output=True)
+    return r.returncode == 0
+
+
+@pytest.mark.slow
+def test_a_full_disk_and_a_read_only_folder_end_in_one_error_line(tmp_path):
+    disk = tmp_path / "disk"
+    if not _mount_tmpfs(disk, "512k"):
+        pytest.skip("cannot mount a small tmpfs here (needs root); the full-disk case is not exercised")
+    try:
+        study = write_study(tmp_path, samples=40)
+        (disk / "filler").write_bytes(b"\0" * (512 * 1024 - 200 * 1024))   # leave about 200 KB
+        store = disk / "s.sqlite"
+        r = subprocess.run(_sweep_cmd(study, store, "--workers", "2"), capture_output=True, text=True, timeout=600)
+        assert r.returncode == 2 and "Traceback" not in r.stderr, r.stderr
+        lines = r.stderr.strip().splitlines()
+        assert len(lines) == 1 and "--resume" in lines[0], r.stderr
+        kept = _count(store)
+        (disk / "filler").unlink()                                    # room again: every committed row is there
+        db = sqlite3.connect(str(store))
+        assert db.execute("PRAGMA quick_check").fetchone()[0] == "ok"
+        assert db.execute("SELECT COUNT(*) FROM scenarios").fetchone()[0] == kept
+        db.close()
+        subprocess.run(["mount", "-o", "remount,ro", str(disk)], check=True)
+        r = subprocess.run(_sweep_cmd(study, disk / "new.sqlite"), capture_output=True, text=True, timeout=120)
+        assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1 and "Traceback" not in r.stderr
+        assert "Read-only" in r.stderr, r.stderr
+    finally:
+        subprocess.run(["umount", str(disk)], capture_output=True)

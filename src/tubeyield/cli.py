@@ -60,7 +60,12 @@ def _parser() -> argparse.ArgumentParser:
     sw.add_argument("--store", required=True, metavar="SQLITE", help="the result store (created if missing)")
     sw.add_argument("--workers", type=int, help="local worker processes (default: all cores)")
     sw.add_argument("--dask", metavar="ADDRESS", help="run on an existing Dask scheduler, e.g. tcp://10.0.0.5:8786")
-    sw.add_argument("--resume", action="store_true", help="run only the scenarios the store does not hold yet")
+    sw.add_argument("--resume", action="store_true", help="run only the scenarios the store does not hold yet (and "
+                                                          "those lost with a worker)")
+    sw.add_argument("--retry-failed", action="store_true", help="with --resume: run the numerically failed "
+                                                                "scenarios again too")
+    sw.add_argument("--worker-wait", type=float, metavar="SECONDS", help="how long to wait for a worker when the "
+                                                                         "cluster has none (default 120)")
     sw.add_argument("--quiet", action="store_true", help="no progress bar")
 
     sr = sub.add_parser("sweep-report", help="summarize a sweep store: distributions, influence, robustness")
@@ -288,7 +293,11 @@ def _sweep(args) -> int:
 
     study = _load(args.study, "sweep", "'vary'", guard=False)
     _at_least(args.workers, "--workers", 1, "a number of processes")
-    out = sweep(study, args.store, workers=args.workers, dask=args.dask, resume=args.resume, progress=not args.quiet)
+    if args.worker_wait is not None and args.worker_wait <= 0:
+        raise StudyError("--worker-wait", f"a positive number of seconds, got {args.worker_wait:g}")
+    out = sweep(study, args.store, workers=args.workers, dask=args.dask, resume=args.resume,
+                retry_failed=args.retry_failed, progress=not args.quiet,
+                worker_wait=args.worker_wait if args.worker_wait is not None else 120.0)
     done = ", ".join(f"{v} {k}" for k, v in sorted(out.counts.items())) or "none"
     print(f"{study.name}: {out.total} scenarios; {out.already} already in the store; ran {out.ran} on {out.where} "
           f"in {out.seconds:.1f} s ({done})")
@@ -296,6 +305,14 @@ def _sweep(args) -> int:
         print("interrupted: the store keeps every finished scenario; run again with --resume to finish",
               file=sys.stderr)
         return 130
+    lost = out.counts.get("lost", 0)
+    if out.stopped or lost:
+        why = [f"stopped: {out.stopped}; {out.not_run} scenario(s) in flight and "
+               f"{out.total - out.already - out.ran - out.not_run} not started were not run"] if out.stopped else []
+        why += [f"{lost} scenario(s) lost with their workers"] if lost else []
+        print(f"error: {args.store}: " + "; ".join(why) + ". Every finished scenario is kept: run again with --resume",
+              file=sys.stderr)
+        return EXIT_FAILED
     return EXIT_OK
 
 

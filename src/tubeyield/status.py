@@ -16,6 +16,7 @@ DONE = "done"                  # a job of many solves finished (front: every lev
 PARTIAL = "partial"            # a job of many solves finished with some parts failed or unverified
 SINGLE_POINT = "single point"  # a front with no trade-off: one point is best in both metrics
 EVALUATED = "evaluated"        # a simulation at a given point (no optimization)
+LOST = "lost"                  # a sweep scenario lost with its worker (infrastructure, not numerics): resumed
 
 SOLVED = (OPTIMAL, UNVERIFIED)  # results that carry numbers (an unverified one is flagged wherever it is shown)
 
@@ -33,6 +34,7 @@ MEANING = {
     PARTIAL: "finished, but some parts failed or are unverified",
     SINGLE_POINT: "no trade-off: one point is best in both metrics",
     EVALUATED: "simulated at the given point",
+    LOST: "lost with its worker, more often than the retries allow; a resume runs it again",
 }
 
 

@@ -1,9 +1,14 @@
 """Where sweep scenarios run: a local process pool or a Dask cluster, behind one small interface.
 
-    executor.share(obj) -> handle      send a large object once (Dask scatters it; locally it is pickled per task)
+    executor.share(obj) -> handle      what tasks receive for an object shared by all (pickled with each task)
     executor.submit(fn, *args) -> future
-    executor.as_completed(futures)     futures in the order they finish
+    executor.wait_some(futures, t)     the futures finished within t seconds (an empty list when none did)
+    executor.workers()                 how many workers can take tasks now
+    executor.restart()                 after a local worker process died: a fresh pool
     executor.shutdown(cancel)          stop; cancel what has not started
+
+Local worker processes stop when the sweep's main process dies, however it dies (even SIGKILL): each watches its
+parent and exits when it is gone, so no orphan goes on computing.
 """
 
 from __future__ import annotations
@@ -12,11 +17,24 @@ import concurrent.futures as cf
 import multiprocessing
 import os
 import signal
+import threading
+import time
 
 
-def _ignore_sigint() -> None:
+PARENT_POLL = 0.5     # s between a worker's checks that its parent is alive
+
+
+def _worker_init(parent: int) -> None:
     # Ctrl-C goes to the whole process group: the driver handles it and shuts the workers down.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+    def watch() -> None:
+        while True:
+            time.sleep(PARENT_POLL)
+            if os.getppid() != parent:      # the parent died: this process was re-parented
+                os._exit(1)
+
+    threading.Thread(target=watch, name="tubeyield-parent-watch", daemon=True).start()
 
 
 class LocalExecutor:
@@ -25,15 +43,15 @@ class LocalExecutor:
     name = "local"
 
     def __init__(self, workers: int | None = None):
-        self.workers = workers or os.cpu_count() or 1
+        self.n_workers = workers or os.cpu_count() or 1
         # One thread per worker for the linear algebra: the pool already uses every core.
         for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
             os.environ.setdefault(var, "1")
         self._start()
 
     def _start(self) -> None:
-        self.pool = cf.ProcessPoolExecutor(max_workers=self.workers, mp_context=multiprocessing.get_context("spawn"),
-                                           initializer=_ignore_sigint)
+        self.pool = cf.ProcessPoolExecutor(max_workers=self.n_workers, mp_context=multiprocessing.get_context("spawn"),
+                                           initializer=_worker_init, initargs=(os.getpid(),))
 
     def restart(self) -> None:
         """After a worker process died (the pool is then broken): a fresh pool."""
@@ -46,14 +64,17 @@ class LocalExecutor:
     def submit(self, fn, *args):
         return self.pool.submit(fn, *args)
 
-    def as_completed(self, futures):
-        return cf.as_completed(futures)
+    def wait_some(self, futures, timeout: float) -> list:
+        return list(cf.wait(futures, timeout=timeout, return_when=cf.FIRST_COMPLETED).done)
+
+    def workers(self) -> int:
+        return self.n_workers
 
     def shutdown(self, cancel: bool = False) -> None:
         self.pool.shutdown(wait=not cancel, cancel_futures=cancel)
 
     def describe(self) -> str:
-        return f"{self.workers} local process(es)"
+        return f"{self.n_workers} local process(es)"
 
 
 class DaskExecutor:
@@ -67,14 +88,24 @@ class DaskExecutor:
         self.address = address
 
     def share(self, obj):
-        return self.client.scatter(obj, broadcast=True)
+        # Sent with every task, not scattered: scattered data lives on workers, and when the workers holding it
+        # die every task that needs it is cancelled ("already forgotten"). A study is a few kilobytes.
+        return obj
 
     def submit(self, fn, *args):
         return self.client.submit(fn, *args, pure=False)
 
-    def as_completed(self, futures):
-        from distributed import as_completed
-        return as_completed(list(futures))
+    def wait_some(self, futures, timeout: float) -> list:
+        from distributed import wait
+        from distributed.client import FuturesCancelledError
+        try:
+            wait(list(futures), timeout=timeout, return_when="FIRST_COMPLETED")
+        except (TimeoutError, FuturesCancelledError):
+            pass            # cancelled futures are done too: their result() raises, and the driver resubmits them
+        return [f for f in futures if f.done()]
+
+    def workers(self) -> int:
+        return len(self.client.scheduler_info().get("workers", {}))
 
     def restart(self) -> None:
         pass

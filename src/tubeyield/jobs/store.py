@@ -4,12 +4,19 @@
   crashed process never leaves a half-written row; the kernel keeps committed pages).
 - Two sweeps on one store are refused: a sweep holds an exclusive `flock` on `<store>.lock` for as long as it runs;
   the kernel releases it when the process ends, however it ends (even SIGKILL), so a stale lock cannot block a resume.
-- The store remembers the study it belongs to (fingerprint and text); resuming with another study is refused.
+- The store remembers the study it belongs to (fingerprint and sources); resuming with another study is refused.
+- A damaged store (SQLite's quick_check fails, or it is not a tubeyield store) is refused before anything is written
+  to it, and left as it is.
+- Two kinds of failure are told apart: `failed` (the scenario's own numerics: no start converged, the simulation
+  failed) and `lost` (the worker running it died, or the cluster lost the task, more than the retries allow). A
+  resume re-runs lost scenarios; failed ones only when asked (`--retry-failed`).
 """
 
 from __future__ import annotations
 
+import contextlib
 import datetime as _dt
+import errno
 import fcntl
 import json
 import os
@@ -24,7 +31,7 @@ CREATE TABLE IF NOT EXISTS scenarios (
     id TEXT PRIMARY KEY,
     idx INTEGER NOT NULL,
     inputs TEXT NOT NULL,          -- JSON: study path -> SI value
-    status TEXT NOT NULL,          -- optimal | infeasible | failed | evaluated | done | single point
+    status TEXT NOT NULL,          -- tubeyield.status: optimal | unverified | infeasible | failed | lost | ...
     goal REAL,
     decisions TEXT,                -- JSON: decision -> SI value (profiles: list)
     metrics TEXT,                  -- JSON: metric -> value (display units)
@@ -44,16 +51,47 @@ class StoreLocked(StudyError):
     pass
 
 
+COLUMNS = ("id", "idx", "inputs", "status", "goal", "decisions", "metrics", "limits", "detail", "iterations",
+           "seconds", "start", "worker", "error", "finished")
+
+
 class Store:
     def __init__(self, path, *, lock: bool = True):
         self.path = Path(path)
         self._lock_fd = None
+        if self.path.is_dir():
+            raise StudyError(str(self.path), "a store file (.sqlite); this is a folder")
+        existing = self.path.is_file() and self.path.stat().st_size > 0
         if lock:
             self._acquire_lock()
-        self.db = sqlite3.connect(str(self.path), timeout=30.0, isolation_level=None)
-        self.db.execute("PRAGMA journal_mode=WAL")
-        self.db.execute("PRAGMA synchronous=NORMAL")
-        self.db.executescript(SCHEMA)
+        try:
+            self.db = sqlite3.connect(str(self.path), timeout=30.0, isolation_level=None)
+            if existing:
+                self._check_integrity()
+            if lock:
+                self.db.execute("PRAGMA journal_mode=WAL")
+                self.db.execute("PRAGMA synchronous=NORMAL")
+                self.db.executescript(SCHEMA)
+        except sqlite3.DatabaseError as exc:
+            self.close()
+            raise StudyError(str(self.path), f"a sweep store in good order; it cannot be read ({exc}). It is left "
+                                             "untouched: start a new --store") from None
+        except BaseException:
+            self.close()
+            raise
+
+    def _check_integrity(self) -> None:
+        """Refuse a damaged store or another database before anything is written to it."""
+        result = self.db.execute("PRAGMA quick_check").fetchall()
+        if [r[0] for r in result] != ["ok"]:
+            problem = " ".join(str(result[0][0]).split())[:200]
+            raise sqlite3.DatabaseError(f"SQLite's integrity check: {problem}")
+        tables = {r[0] for r in self.db.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+        if not {"meta", "scenarios"} <= tables:
+            raise sqlite3.DatabaseError("not a tubeyield sweep store (no meta and scenarios tables)")
+        columns = {r[1] for r in self.db.execute("PRAGMA table_info(scenarios)")}
+        if not set(COLUMNS) <= columns:
+            raise sqlite3.DatabaseError("not a tubeyield sweep store (its scenarios table lacks columns)")
 
     # -------------------------------------------------------------------------------------------------- locking
 
@@ -72,7 +110,9 @@ class Store:
         self._lock_fd = fd
 
     def close(self) -> None:
-        self.db.close()
+        if getattr(self, "db", None) is not None:
+            self.db.close()
+            self.db = None
         if self._lock_fd is not None:
             fcntl.flock(self._lock_fd, fcntl.LOCK_UN)
             os.close(self._lock_fd)
@@ -100,7 +140,7 @@ class Store:
         if n and not resume:
             raise StudyError(str(self.path), f"an empty or new store, or --resume; it already holds {n} scenario(s) "
                                              "of this study (add --resume to run only the missing ones)")
-        with self.db:
+        with self._writing():
             for k, v in (("fingerprint", fingerprint), ("study", study_text), ("run", run)):
                 self.db.execute("INSERT OR REPLACE INTO meta VALUES (?, ?)", (k, v))
             self.db.execute("INSERT OR IGNORE INTO meta VALUES ('created', ?)", (_now(),))
@@ -110,19 +150,38 @@ class Store:
     def done_ids(self) -> set[str]:
         return {r[0] for r in self.db.execute("SELECT id FROM scenarios")}
 
+    def ids_with_status(self, statuses) -> set[str]:
+        marks = ", ".join("?" * len(statuses))
+        return {r[0] for r in self.db.execute(f"SELECT id FROM scenarios WHERE status IN ({marks})", tuple(statuses))}
+
+    def forget(self, ids) -> None:
+        """Drop the rows of scenarios about to run again (lost ones on a resume, failed ones when asked)."""
+        with self._writing():
+            self.db.executemany("DELETE FROM scenarios WHERE id = ?", [(i,) for i in ids])
+
+    @contextlib.contextmanager
+    def _writing(self):
+        """One transaction. A full disk or a store that turned read-only ends the sweep in one line; every row
+        committed before stays."""
+        try:
+            with self.db:
+                yield
+        except sqlite3.OperationalError as exc:
+            raise OSError(errno.EIO, f"cannot write to the store ({exc}); every finished scenario is kept: make "
+                                     "room and run again with --resume", str(self.path)) from None
+
     def count(self) -> int:
         return int(self.db.execute("SELECT COUNT(*) FROM scenarios").fetchone()[0])
 
     def put(self, row: dict) -> None:
         """Insert one scenario's result and commit. A row already present (a task that ran twice, e.g. after a
         worker was lost) is kept as it was: the first result stands."""
-        cols = ("id", "idx", "inputs", "status", "goal", "decisions", "metrics", "limits", "detail", "iterations",
-                "seconds", "start", "worker", "error", "finished")
+        cols = COLUMNS
         values = [row.get("id"), row.get("idx"), json.dumps(row.get("inputs", {})), row.get("status", "failed"),
                   row.get("goal"), _js(row.get("decisions")), _js(row.get("metrics")), _js(row.get("limits")),
                   _js(row.get("detail")), row.get("iterations"), row.get("seconds"), row.get("start"),
                   row.get("worker"), row.get("error"), _now()]
-        with self.db:
+        with self._writing():
             self.db.execute(f"INSERT OR IGNORE INTO scenarios ({', '.join(cols)}) VALUES "
                             f"({', '.join('?' * len(cols))})", values)
 

@@ -20,13 +20,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from tubeyield import status as st
 from tubeyield.errors import StudyError
 from tubeyield.jobs.scenario import Scenario, apply_values, scenarios, study_fingerprint
 from tubeyield.jobs.store import Store
 from tubeyield.study.schema import Study
 
 MEMORY = 32          # finished scenarios a worker remembers for warm starts
-MAX_ATTEMPTS = 3     # a scenario in flight when a worker process died is retried this often
+MAX_ATTEMPTS = 3     # a scenario lost with its worker is submitted again this often before it is recorded lost
 
 
 # ------------------------------------------------------------------------------------------------------- worker
@@ -200,78 +201,114 @@ class SweepOutcome:
     seconds: float
     interrupted: bool
     where: str
+    stopped: str = ""          # why the sweep stopped before the end (no workers left), "" when it did not
+    not_run: int = 0           # scenarios neither finished nor recorded (run them with --resume)
+
+
+POLL = 2.0                     # s between checks on the workers while waiting for results
 
 
 def sweep(study: Study, store_path, *, workers: int | None = None, dask: str | None = None, resume: bool = False,
-          progress: bool = True) -> SweepOutcome:
+          retry_failed: bool = False, progress: bool = True, worker_wait: float = 120.0) -> SweepOutcome:
+    """Run every scenario of study.sweep into the store. A resume runs what the store lacks and what was lost with
+    a worker (`lost`); with `retry_failed`, the scenarios that failed numerically as well. With no worker left for
+    `worker_wait` seconds (a Dask cluster whose workers are gone), the sweep stops and says how many did not run."""
     if study.sweep is None:
         raise StudyError("sweep", "a [sweep] table with 'vary'")
+    if retry_failed and not resume:
+        raise StudyError("--retry-failed", "--resume as well (it re-runs the failed scenarios of an existing store)")
     t0 = time.perf_counter()
     all_scenarios = scenarios(study)
-    source = study.sources_json()
     with Store(store_path) as store:
-        store.bind(study_fingerprint(study), source, study.sweep.run, resume)
+        store.bind(study_fingerprint(study), study.sources_json(), study.sweep.run, resume)
+        if resume:
+            store.forget(store.ids_with_status((st.LOST, st.FAILED) if retry_failed else (st.LOST,)))
         done = store.done_ids()
         todo = [s for s in all_scenarios if s.id not in done]
         counts: dict = {}
-        interrupted = False
-        where = "nothing to run"
+        outcome = SweepOutcome(len(all_scenarios), len(all_scenarios) - len(todo), 0, counts, 0.0, False,
+                               "nothing to run")
         if todo:
             from tubeyield.jobs.executor import DaskExecutor, LocalExecutor
             executor = DaskExecutor(dask) if dask else LocalExecutor(workers)
-            where = executor.describe()
+            outcome.where = executor.describe()
             try:
-                interrupted = _drive(executor, study, todo, store, counts, progress)
+                _drive(executor, study, todo, store, outcome, progress, worker_wait)
             finally:
                 executor.shutdown(cancel=True)
-    return SweepOutcome(len(all_scenarios), len(all_scenarios) - len(todo), sum(counts.values()), counts,
-                        time.perf_counter() - t0, interrupted, where)
+    outcome.ran = sum(counts.values())
+    outcome.seconds = time.perf_counter() - t0
+    return outcome
 
 
-def _drive(executor, study: Study, todo: list[Scenario], store: Store, counts: dict, progress: bool) -> bool:
-    """Submit every scenario, commit each result as it arrives. Returns True when interrupted (Ctrl-C)."""
+def _lost_row(s: Scenario, why: str) -> dict:
+    return {"id": s.id, "idx": s.index, "inputs": s.as_dict(), "status": st.LOST, "error": why[:2000]}
+
+
+def _drive(executor, study: Study, todo: list[Scenario], store: Store, outcome: SweepOutcome, progress: bool,
+           worker_wait: float) -> None:
+    """Submit every scenario and commit each result as it arrives. A task lost with its worker (a dead process, a
+    cluster that dropped it) is submitted again, up to MAX_ATTEMPTS times, and recorded as `lost`, never as a
+    numerical failure. Ctrl-C and a cluster without workers stop the sweep; what did not run is not recorded."""
     from tqdm import tqdm
+    counts = outcome.counts
     shared = executor.share(study)
     attempts = {s.id: 0 for s in todo}
-    pending = list(todo)
+    queue, running = list(todo), {}
+    idle_since = None
     bar = tqdm(total=len(todo), unit="scenario", file=sys.stderr, disable=not progress, mininterval=0.5,
                dynamic_ncols=True, smoothing=0.1)
+
+    def record(row: dict) -> None:
+        store.put(row)
+        counts[row["status"]] = counts.get(row["status"], 0) + 1
+        bar.update(1)
+        bar.set_postfix({k: v for k, v in sorted(counts.items())}, refresh=False)
+
+    def again(s: Scenario, why: str) -> None:
+        attempts[s.id] += 1
+        if attempts[s.id] < MAX_ATTEMPTS:
+            queue.append(s)
+        else:
+            record(_lost_row(s, f"lost {MAX_ATTEMPTS} times with its worker; last: {why}"))
+
     try:
-        while pending:
-            futures = {executor.submit(run_scenario, shared, s): s for s in pending}
-            pending = []
-            try:
-                for fut in executor.as_completed(futures):
-                    s = futures[fut]
-                    try:
-                        row = fut.result()
-                    except BrokenProcessPool:
-                        raise
-                    except Exception as exc:  # the task itself was lost (e.g. a Dask worker died too often)
-                        row = {"id": s.id, "idx": s.index, "inputs": s.as_dict(), "status": "failed",
-                               "error": f"task lost: {type(exc).__name__}: {exc}"[:2000]}
-                    store.put(row)
-                    counts[row["status"]] = counts.get(row["status"], 0) + 1
-                    bar.update(1)
-                    bar.set_postfix({k: v for k, v in sorted(counts.items())}, refresh=False)
-            except BrokenProcessPool:
-                # A worker process died (a crash in a native library): fresh pool, retry what did not finish.
-                finished = store.done_ids()
+        while queue or running:
+            for s in queue:
+                running[executor.submit(run_scenario, shared, s)] = s
+            queue = []
+            broken = False
+            finished = executor.wait_some(list(running), POLL)
+            if not finished:
+                if executor.workers() == 0:
+                    idle_since = idle_since or time.monotonic()
+                    if time.monotonic() - idle_since > worker_wait:
+                        outcome.stopped = f"no worker for {worker_wait:g} s"
+                        outcome.not_run = len(running)
+                        return
+                else:
+                    idle_since = None
+                continue
+            idle_since = None
+            for fut in finished:
+                s = running.pop(fut)
+                try:
+                    row = fut.result()
+                except BrokenProcessPool:
+                    broken = True
+                    again(s, "the worker process died")
+                except Exception as exc:  # the task, not the scenario, failed: lost with its worker
+                    again(s, f"{type(exc).__name__}: {exc}")
+                else:
+                    record(row)
+            if broken:
+                # A local worker process died (a crash in a native library): every task of the pool is gone with
+                # it. A fresh pool; what was still running goes again.
                 executor.restart()
-                for s in futures.values():
-                    if s.id in finished:
-                        continue
-                    attempts[s.id] += 1
-                    if attempts[s.id] >= MAX_ATTEMPTS:
-                        store.put({"id": s.id, "idx": s.index, "inputs": s.as_dict(), "status": "failed",
-                                   "error": "the worker process died while running this scenario, "
-                                            f"{MAX_ATTEMPTS} times"})
-                        counts["failed"] = counts.get("failed", 0) + 1
-                        bar.update(1)
-                    else:
-                        pending.append(s)
-        return False
+                for s in list(running.values()):
+                    again(s, "the worker pool was restarted")
+                running = {}
     except KeyboardInterrupt:
-        return True
+        outcome.interrupted = True
     finally:
         bar.close()
