@@ -195,7 +195,7 @@ def _optimize(args) -> int:
 
     study = _load(args.study)
     _at_least(args.starts, "--starts", 1, "a number of starting points")
-    result = optimize(study, starts=args.starts, tee=args.tee)
+    result = optimize(study, starts=args.starts, tee=args.tee, relax=True)
     if args.save:
         save_result(args.save, "optimum", result, study)
     if args.json:

@@ -121,7 +121,7 @@ maximize = "outlet:B"
 """
 
 
-# (k1, k2, tau_opt, C_Bmax/C_A0): REFERENCES.md rows 1 and 2, values recomputed from the formulas of [L] ch. 8.
+# (k1, k2, tau_opt, C_Bmax/C_A0): values recomputed by us from the closed forms of [L] ch. 8 (plug and mixed flow).
 PLUG_SERIES = [(1.0, 0.5, 1.386294, 0.500000), (0.5, 0.2, 3.054302, 0.542884)]
 TANK_SERIES = [(1.0, 0.5, 1.414214, 0.343146), (0.5, 0.2, 3.162278, 0.375247)]
 
@@ -131,7 +131,7 @@ def test_series_plug_flow_optimum(k1, k2, tau_tab, cb_tab):
     # [L] ch. 8, A -> B -> C first order, plug flow: tau_opt = ln(k2/k1)/(k2 - k1), C_Bmax/C_A0 = (k1/k2)^(k2/(k2-k1))
     tau_opt = math.log(k2 / k1) / (k2 - k1)
     cb_max = (k1 / k2) ** (k2 / (k2 - k1))
-    assert (tau_opt, cb_max) == pytest.approx((tau_tab, cb_tab), abs=1e-6)   # the table in REFERENCES.md
+    assert (tau_opt, cb_max) == pytest.approx((tau_tab, cb_tab), abs=1e-6)   # the table above
     res = optimize(study_from_toml(series("plug", k1, k2)))
     assert res.status == "optimal"
     assert res.decisions_si["tau"] == pytest.approx(tau_opt, rel=REL)
@@ -175,7 +175,7 @@ maximize = "conversion:A"
 """
 
 
-# X = 0.9: k tau for eps = -0.5, 0, 1, 2 (REFERENCES.md row 3): plug flow and mixed flow.
+# X = 0.9: k tau for eps = -0.5, 0, 1, 2 (recomputed from [L] ch. 5, first order with expansion): plug and mixed flow.
 GAS = [(-0.5, 1.601293, 4.95), (0.0, 2.302585, 9.0), (1.0, 3.705170, 17.1), (2.0, 5.107755, 25.2)]
 
 

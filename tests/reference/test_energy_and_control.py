@@ -2,14 +2,14 @@
 
 Sources:
   [F5]  H. S. Fogler, Elements of Chemical Reaction Engineering, 5th ed., Pearson 2016: adiabatic energy balance
-        T = T0 + (-dH) X / sum(Theta_i Cp_i); Example 11-3 (liquid butane isomerization; inputs confirmed in a stored
-        copy, as listed in REFERENCES.md row 6).
+        T = T0 + (-dH) X / sum(Theta_i Cp_i); Example 11-3 (liquid butane isomerization; inputs read from a copy of the
+        example).
   [Ray] W. H. Ray, Advanced Process Control, McGraw-Hill 1981, and J. S. Logsdon and L. T. Biegler, Ind. Eng. Chem.
         Res. 28 (1989) 1628: the batch temperature-profile problem, optimum x_B(1) about 0.6108 (from memory; 0.6107994
         at 30 collocation points in a stored benchmark collection; our converged recomputation 0.6108029). Through the
         plug-flow/batch analogy, batch time is residence time.
   [B]   B. W. Bequette, Process Control, Prentice Hall 2003: Van de Vusse parameters (confirmed indirectly); the optima
-        are from memory / recomputed (REFERENCES.md row 8).
+        are from memory / recomputed by us.
 """
 
 import math
@@ -152,7 +152,7 @@ def test_free_profile_converges_to_the_continuous_optimum():
 
 def test_constant_and_zoned_temperatures_bracket_the_profile():
     iso = optimize(ray("isothermal"))
-    assert outlet_b(iso) == pytest.approx(0.605947, rel=1e-5)        # recomputed best constant T (REFERENCES row 7)
+    assert outlet_b(iso) == pytest.approx(0.605947, rel=1e-5)        # best constant T, recomputed by us
     assert iso.decisions["T"]["value"] == pytest.approx(335.34, abs=0.01)
     two = optimize(ray("zones", zones="zones = 2"))
     four = optimize(ray("zones", zones="zones = 4"))
@@ -207,8 +207,8 @@ def test_van_de_vusse_stirred_steady_state():
 
 
 def test_van_de_vusse_optima():
-    # [B] from memory: stirred max C_B = 1.26599 mol/L at F/V = 1.29209 1/min; plug flow (recomputed in
-    # REFERENCES.md) 1.67894 mol/L at tau = 0.60771 min.
+    # [B] from memory: stirred max C_B = 1.26599 mol/L at F/V = 1.29209 1/min; plug flow (recomputed by us)
+    # 1.67894 mol/L at tau = 0.60771 min.
     tank = optimize(vdv("stirred", '["0.05 min", "5 min"]'))
     assert tank.outlet["B"]["conc"] == pytest.approx(1.26599, rel=1e-5)
     assert 1 / tank.decisions["tau"]["value"] == pytest.approx(1.29209, rel=1e-4)

@@ -68,8 +68,12 @@ def evaluate(study: Study, values: dict) -> Result:
         else:
             value_si, si_unit = sim.metric(lim.metric), lim.metric.si_unit
         holds = value_si <= lim.bound * (1 + 1e-9) if lim.sense == "<=" else value_si >= lim.bound * (1 - 1e-9)
-        limits.append({"text": lim.text, "value": convert(value_si, si_unit, lim.unit) if lim.unit else value_si,
-                       "unit": lim.unit, "holds": bool(holds)})
+        shown = (lambda v: convert(v, si_unit, lim.unit) if lim.unit else v)
+        value, bound = shown(value_si), shown(lim.bound)
+        # margin in the limit's unit: room left (> 0) or how much it is missed by (< 0)
+        margin = bound - value if lim.sense == "<=" else value - bound
+        limits.append({"text": lim.text, "value": value, "bound": bound, "margin": 0.0 if holds and margin < 0
+                       else margin, "unit": lim.unit, "holds": bool(holds)})
     flows = sim.outlet_flows()
     from tubeyield.reactor.balances import concentrations
     conc = concentrations(study, sim.u_out, sim.T_out, sim.c_s, sim.par)

@@ -34,7 +34,7 @@ from tubeyield.jobs.result import Result, _finite
 from tubeyield.reactor.metrics import all_metrics, metric_display
 from tubeyield.reactor.verify import compare, reference
 from tubeyield.solve import OK_CONDITIONS, make_solver
-from tubeyield.solve.marginals import bound_reports, limit_reports
+from tubeyield.solve.marginals import bound_reports, limit_reports, limit_sensitivity
 from tubeyield.study.metric import Metric
 from tubeyield.study.schema import Study
 from tubeyield.study.units import decisions_to_user
@@ -260,7 +260,7 @@ def _point(model, study: Study, spec, level: float, solver) -> dict:
     for lh in model.limits:
         lim = lh.limit
         if lim.metric == spec.x and lim.sense == sense and abs(lim.bound - level) <= 1e-6 * max(1.0, abs(level)):
-            sensitivity += sum(model.m.dual.get(c, 0.0) or 0.0 for c in lh.constraints) / lh.scale
+            sensitivity += limit_sensitivity(model, lh) / lh.scale
     dy_dx = sensitivity * model.goal_scale
     dy_dx *= _display_factor(spec.y) / _display_factor(spec.x)
     active = [r.text for r in limit_reports(model) if r.active]

@@ -14,6 +14,7 @@ import time
 import pyomo.environ as pyo
 
 from tubeyield import status as st
+from tubeyield.jobs.marginal_range import marginal_ranges
 from tubeyield.jobs.infeasible import FEASIBLE_VIOLATION, closest_point, conflict_message, conflicts
 from tubeyield.jobs.problem import prepare, starting_mesh, timed_solve
 from tubeyield.jobs.profile_search import is_profile_study, profile_starts
@@ -33,10 +34,11 @@ VERIFY_AT_MOST = 3     # distinct local optima tried, best first, until one pass
 
 
 def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=None, tee: bool = False,
-             model: ReactorModel | None = None, screened: list | None = None) -> Result:
+             model: ReactorModel | None = None, screened: list | None = None, relax: bool = False) -> Result:
     """The best operating point of `study`. `model` (optional) is a prepared model of the same structure, reused
     with the study's parameter values (sweeps, fronts); otherwise one is built. `screened` (optional) holds
-    simulated candidate points to rank for this goal instead of screening a new design."""
+    simulated candidate points to rank for this goal instead of screening a new design. `relax` re-solves at
+    relaxed bounds to say over what range each active limit's marginal holds (jobs/marginal_range.py)."""
     t_start = time.perf_counter()
     numerics = study.numerics
     solver = solver or make_solver(numerics)
@@ -120,6 +122,11 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
     run, verified = next(((r, v) for r, v in tried if _trusted(r, v)), tried[0])
     status = st.OPTIMAL if _trusted(run, verified) else st.UNVERIFIED
     result = _result(study, verified.model, status, verified.check, starts_info, timing, t_start, verified)
+    if status == st.OPTIMAL and relax:
+        t = time.perf_counter()
+        marginal_ranges(study, verified.model, solver, options, result.limits, result.timing)
+        result.timing["marginal_ranges"] = time.perf_counter() - t
+        result.timing["total"] = time.perf_counter() - t_start
     if status == st.OPTIMAL and run is not tried[0][0]:
         shown = metric_display(study.goal.metric, tried[0][0]["goal"])[0]
         result.warnings.append(f"a better point ({study.goal.metric.text} = {shown:.6g}) did not pass its "

@@ -132,7 +132,8 @@ def _hold_temperature_limits(study, model, sim, check, solver, options, timing, 
         for h, _a in over:
             shift[h.limit] += 1.05 * h.excess
             _tighten(handles[h.limit], shift[h.limit], model.T_scale)
-        res = timed_solve(solver, model, timing, options=options, warmstart=True, tee=tee)
+        # only a pinned bound moved: the written NL and the built solver are reused
+        res = timed_solve(solver, model, timing, options=options, warmstart=True, reuse_structure=True, tee=tee)
         if res.solver.termination_condition not in OK_CONDITIONS:
             check.notes.append("tightening a temperature limit exceeded between mesh points did not converge")
             break
@@ -151,6 +152,4 @@ def _hold_temperature_limits(study, model, sim, check, solver, options, timing, 
 def _tighten(handle, shift: float, T_scale: float) -> None:
     """Move the bound of a temperature limit's constraints (at the collocation points) inwards by `shift` K."""
     lim = handle.limit
-    bound = (lim.bound - shift if lim.sense == "<=" else lim.bound + shift) / T_scale
-    for con in handle.constraints:
-        con.set_value((None, con.body, bound) if lim.sense == "<=" else (bound, con.body, None))
+    handle.set_bound(lim.bound - shift if lim.sense == "<=" else lim.bound + shift)

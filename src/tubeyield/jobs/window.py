@@ -12,7 +12,6 @@ simulate every cell, spread over processes.
 
 from __future__ import annotations
 
-import dataclasses
 import os
 import time
 from concurrent.futures import ProcessPoolExecutor
@@ -23,6 +22,7 @@ import numpy as np
 from tubeyield import __version__
 from tubeyield.jobs.result import _finite
 from tubeyield.errors import SimulationFailed
+from tubeyield.reactor.metrics import metric_display
 from tubeyield.reactor.simulate import simulate
 from tubeyield.study.schema import Study
 from tubeyield.study.units import convert
@@ -48,6 +48,7 @@ class WindowResult:
     others: str
     timing: dict = field(default_factory=dict)
     method: str = ""
+    units: dict = field(default_factory=dict)   # unit of each fixed decision and of the goal ('' for fractions)
 
     def to_dict(self) -> dict:
         return _finite({"tool": f"tubeyield {__version__}", "study": self.study, "x": self.x, "y": self.y,
@@ -55,7 +56,7 @@ class WindowResult:
                         "y_values": self.y_values.tolist(), "maps": {k: v.tolist() for k, v in self.maps.items()},
                         "holds": {k: v.tolist() for k, v in self.holds.items()}, "window": self.window.tolist(),
                         "fixed": self.fixed, "goal": self.goal, "optimum": self.optimum, "others": self.others,
-                        "timing": self.timing, "method": self.method,
+                        "timing": self.timing, "method": self.method, "units": self.units,
                         "window_share": float(np.mean(self.window))})
 
     @classmethod
@@ -63,7 +64,8 @@ class WindowResult:
         return cls(d["study"], d["x"], d["y"], d["x_unit"], d["y_unit"], np.array(d["x_values"]),
                    np.array(d["y_values"]), {k: _arr(v) for k, v in d["maps"].items()},
                    {k: np.array(v, dtype=bool) for k, v in d["holds"].items()}, np.array(d["window"], dtype=bool),
-                   d["fixed"], d["goal"], d["optimum"], d["others"], d.get("timing", {}), d.get("method", ""))
+                   d["fixed"], d["goal"], d["optimum"], d["others"], d.get("timing", {}), d.get("method", ""),
+                   d.get("units", {}))
 
 
 def _arr(v):
@@ -80,7 +82,6 @@ def axis_values(study: Study, name: str, n: int) -> np.ndarray:
 
 def _quantities(study: Study, sim) -> dict:
     """Goal and limit quantities of one simulated point, in display units (limit quantities in the bound's unit)."""
-    from tubeyield.reactor.metrics import metric_display
     out = {study.goal.metric.text: metric_display(study.goal.metric, sim.metric(study.goal.metric))[0]}
     for lim in study.goal.limits:
         if lim.metric is None:
@@ -139,7 +140,9 @@ def window(study: Study, base: dict, *, workers: int | None = None, optimum: dic
              for k, v in base.items() if k not in (spec.x, spec.y) and not isinstance(v, list)}
     return WindowResult(study.name, spec.x, spec.y, dx.unit, dy.unit, _user(xs, dx), _user(ys, dy), maps, holds,
                         window_mask, fixed, study.goal.metric.text, optimum, spec.others,
-                        {"total": time.perf_counter() - t0, "cells": len(xs) * len(ys)}, method)
+                        {"total": time.perf_counter() - t0, "cells": len(xs) * len(ys)}, method,
+                        {**{k: study.decision(k).unit for k in fixed},
+                         study.goal.metric.text: metric_display(study.goal.metric, 1.0)[1]})
 
 
 def _user(values: np.ndarray, d) -> np.ndarray:
@@ -153,7 +156,6 @@ def _tau_axis_shortcut(study: Study, spec) -> bool:
 
 def _tau_rows(study: Study, base: dict, xs, ys, spec):
     """One integration per value of the other axis; every residence time read off its dense solution at once."""
-    from tubeyield.reactor.metrics import metric_display
     from tubeyield.reactor.balances import concentrations
     from tubeyield.reactor.metrics import metric_value
     tau_on_x = spec.x == "tau"
@@ -234,7 +236,6 @@ def _optimized_cells(study: Study, base: dict, xs, ys):
     grid = []
     first = True
     for j, y in enumerate(ys):
-        row = []
         order = range(len(xs)) if j % 2 == 0 else range(len(xs) - 1, -1, -1)   # snake: neighbours stay close
         cells = {}
         for i in order:

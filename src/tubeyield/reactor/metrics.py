@@ -45,14 +45,15 @@ def metric_value(study: Study, metric: Metric, u_out: dict, u_in: dict, tau, c_s
 
 
 def all_metrics(study: Study) -> list[Metric]:
-    """The metrics every result reports: conversion of each fed reactant, yield and selectivity of each product."""
-    from tubeyield.chemistry.network import fed_species
+    """The metrics every result reports: conversion of each fed reactant, yield and selectivity of each product
+    on a path from the key reactant (co-products such as water are left out unless the study names them)."""
+    from tubeyield.chemistry.network import fed_species, yield_paths
     fed = fed_species(study)
     consumed = {s for r in study.reactions for s, c in r.stoichiometry().items() if c < 0}
-    produced = {s for r in study.reactions for s, c in r.stoichiometry().items() if c > 0}
+    carried = yield_paths(study)
     out = [Metric("conversion", s) for s in study.symbols if s in fed and s in consumed]
-    out += [Metric("yield", s) for s in study.symbols if s in produced and s != study.goal.key]
-    out += [Metric("selectivity", s) for s in study.symbols if s in produced and s != study.goal.key]
+    out += [Metric("yield", s) for s in study.symbols if s in carried]
+    out += [Metric("selectivity", s) for s in study.symbols if s in carried]
     for m in [study.goal.metric] + [lim.metric for lim in study.goal.limits if lim.metric is not None]:
         if m not in out:
             out.append(m)

@@ -79,6 +79,19 @@ class LimitHandle:
     limit: Limit
     constraints: list             # ConstraintData, one per point for a temperature limit
     scale: float                  # constraint = expression_SI / scale
+    level: object = None          # the bound as a pinned variable (scaled), or None (elastic limits)
+
+    def set_bound(self, value_si: float) -> None:
+        """Move the limit's bound (SI) without rebuilding the solver: the level is a pinned variable."""
+        v = value_si / self.scale
+        self.level.setlb(v)
+        self.level.setub(v)
+        self.level.set_value(v, skip_validation=True)
+
+    @property
+    def bound(self) -> float:
+        """The bound the constraints hold now (SI): the study's, or a tightened one."""
+        return float(self.level.lb) * self.scale
 
 
 class ReactorModel:
@@ -230,19 +243,22 @@ class ReactorModel:
             self.limits.append(self._limit(f"limit_{len(self.limits)}", lim))
 
     def _limit(self, name: str, lim: Limit) -> LimitHandle:
+        """A limit whose bound is a pinned variable, so that tightening it (temperature between mesh points) or
+        relaxing it (the range of its marginal) re-solves without a new NL file or solver."""
         m = self.m
+        scale = self.T_scale if lim.metric is None else _metric_scale(lim.metric, lim.bound, self)
+        level = pyo.Var(initialize=lim.bound / scale, bounds=(lim.bound / scale, lim.bound / scale))
+        m.add_component(f"{name}_bound", level)
         if lim.metric is None:
-            bound = lim.bound / self.T_scale
             idx = list(range(len(self.T_points)))
-            rule = (lambda m, k: self.T_points[k] <= bound) if lim.sense == "<=" else (lambda m, k: self.T_points[k] >= bound)
+            rule = (lambda m, k: self.T_points[k] <= level) if lim.sense == "<=" else (lambda m, k: self.T_points[k] >= level)
             con = pyo.Constraint(idx, rule=rule)
             m.add_component(name, con)
-            return LimitHandle(lim, [con[k] for k in idx], self.T_scale)
-        scale = _metric_scale(lim.metric, lim.bound, self)
+            return LimitHandle(lim, [con[k] for k in idx], scale, level)
         expr = self.metric(lim.metric) / scale
-        con = pyo.Constraint(expr=expr >= lim.bound / scale if lim.sense == ">=" else expr <= lim.bound / scale)
+        con = pyo.Constraint(expr=expr >= level if lim.sense == ">=" else expr <= level)
         m.add_component(name, con)
-        return LimitHandle(lim, [con], scale)
+        return LimitHandle(lim, [con], scale, level)
 
     def add_elastic_limits(self, limits) -> list:
         """Limits with a non-negative slack each (one shared by the points of a temperature limit), for the

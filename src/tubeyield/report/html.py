@@ -22,7 +22,7 @@ from tubeyield import __version__
 from tubeyield.errors import StudyError
 from tubeyield.report import figures
 from tubeyield.report.files import write_atomic
-from tubeyield.report.text import CAUTION, fmt
+from tubeyield.report.text import CAUTION, fmt, relaxed_text
 
 TEMPLATES = Path(__file__).parent / "templates"
 
@@ -117,7 +117,8 @@ def build_report(result_dir, out_dir=None) -> Path:
         study_file=Path(study.path).name, caution=CAUTION, css=(TEMPLATES / "report.css").read_text(),
         network=_network_context(study, net, report), optimum=optimum, tables=tables, figures=figs,
         front=front, front_stats=front_stats, front_decisions=front_decisions, window=window,
-        window_fixed=", ".join(f"{k} = {fmt(v)}" for k, v in (window.fixed.items() if window else [])) or "none",
+        window_fixed=", ".join(f"{k} = {fmt(v)} {window.units.get(k) or ''}".rstrip()
+                               for k, v in (window.fixed.items() if window else [])) or "none",
         window_share=float(window.window.mean()) if window else 0.0, sweep=sweep,
         points=study.reactor.points, inputs=inputs, provenance=_provenance(),
         assumptions=_assumptions(study))
@@ -143,11 +144,12 @@ def _optimum_tables(opt: dict, tab_dir: Path):
         note = "at lower bound" if (name, "low") in bounds else "at upper bound" if (name, "high") in bounds else ""
         decisions.append({"decision": name, "value": value, "range": rng, "note": note})
     limits = [{"text": lim["text"], "value": f"{fmt(lim['value'])} {lim['unit']}".strip(), "active": lim["active"],
-               "marginal": f"{lim['marginal']:+.4g} {lim['marginal_unit']}"} for lim in opt.get("limits", [])]
+               "marginal": f"{lim['marginal']:+.4g} {lim['marginal_unit']}" if lim["active"] else "0",
+               "holds": relaxed_text(lim) if lim.get("relaxed") else ""} for lim in opt.get("limits", [])]
     limits += [{"text": f"{b['decision']} {'lower' if b['side'] == 'low' else 'upper' if b['side'] == 'high' else 'fixed'}"
                         f" {'bound' if b['side'] != 'fixed' else 'value'}",
                 "value": f"{fmt(b['bound'])} {b['unit']}".strip(), "active": b["side"] != "fixed",
-                "marginal": f"{b['marginal']:+.4g} {b['marginal_unit']}"} for b in opt.get("bounds", [])]
+                "marginal": f"{b['marginal']:+.4g} {b['marginal_unit']}", "holds": ""} for b in opt.get("bounds", [])]
     write_atomic(tab_dir / "decisions.csv", pd.DataFrame(decisions).to_csv(index=False))
     write_atomic(tab_dir / "limits.csv", pd.DataFrame(limits).to_csv(index=False))
     metrics = [{"metric": k, "value": v["value"], "unit": v["unit"]} for k, v in opt.get("metrics", {}).items()]

@@ -16,6 +16,24 @@ def fmt(v, digits: int = 5) -> str:
     return str(v)
 
 
+def relaxed_text(lim: dict) -> str:
+    """'relaxed to 0.798: +0.000399 (100 % of marginal x change), to 0.792: +0.00131 (82 %); the marginal holds
+    (within 10 %) to 0.798'."""
+    unit = f" {lim['unit']}" if lim["unit"] else ""
+    tries = []
+    for s in lim["relaxed"]:
+        at = f"{fmt(s['bound'], 4)}{unit}"
+        if not s["solved"]:
+            tries.append(f"to {at}: the re-solve failed")
+        elif s["predicted"]:
+            tries.append(f"to {at}: {s['gain']:+.3g} ({100 * s['gain'] / s['predicted']:.0f} % of marginal x change)")
+        else:
+            tries.append(f"to {at}: {s['gain']:+.3g}")
+    held = (f"the marginal holds (within 10 %) to {fmt(lim['holds_to'], 4)}{unit}" if lim["holds_to"] is not None
+            else "the marginal holds only for smaller changes")
+    return "relaxed " + ", ".join(tries) + "; " + held
+
+
 def hot_spot_text(lim: dict) -> str:
     """'highest T 398.2 K at 12 % of the volume (residence time 14.3 s)' for a temperature limit's extreme."""
     where = lim["where"]
@@ -76,14 +94,17 @@ def optimum_summary(result) -> str:
             w = max(len(r[0]) for r in rows)
             for name, value, marginal, unit in rows:
                 out.append(f"  {name:<{w}}  {value:<14} marginal {marginal:+.4g} {unit}")
+            for lim in result.limits:
+                if lim.get("relaxed"):
+                    out.append(f"  {lim['text']}: " + relaxed_text(lim))
             inactive = [lim["text"] for lim in result.limits if not lim.get("active")]
             if inactive:
                 out.append(f"  not binding: {', '.join(inactive)}")
+        else:
+            out.append("  nothing: the optimum is interior (no limit or bound is active)")
         for lim in result.limits:
             if "where" in lim and (lim.get("heat") != "isothermal" or not lim.get("holds", True)):
                 out.append(f"  {lim['text']}: " + hot_spot_text(lim))
-        else:
-            out.append("  nothing: the optimum is interior (no limit or bound is active)")
     if result.conflicts:
         out += ["", "conflicting limits"]
         for c in result.conflicts:
@@ -111,6 +132,8 @@ def evaluation_summary(result, notes=()) -> str:
     g = result.goal
     out = [f"{result.study}: simulated operating point ({result.status})"]
     out += [f"  note: {n}" for n in notes]
+    word = "maximize" if g["sense"].startswith("max") else "minimize"
+    out.append(f"  goal ({word} {g['metric']}): {fmt(g['value'])} {g['unit']}".rstrip())
     out += ["", "operating point"] + _decision_lines(result)
     out.append(f"  reactor volume {fmt(result.volume_m3 * 1000.0)} L")
     out += ["", "outlet"]
@@ -119,8 +142,12 @@ def evaluation_summary(result, notes=()) -> str:
         out.append(f"  {k:<{width}}  {fmt(m['value'])} {m['unit']}".rstrip())
     if result.limits:
         out += ["", "limits"]
+        width = max(len(lim["text"]) for lim in result.limits)
         for lim in result.limits:
-            out.append(f"  {lim['text']:<28} {fmt(lim['value'])} {lim['unit']:<4} {'holds' if lim['holds'] else 'MISSED'}")
+            value = f"{fmt(lim['value'])} {lim['unit']}".rstrip()
+            margin = f"{fmt(abs(lim['margin']))} {lim['unit']}".rstrip()
+            state = f"holds, {margin} to spare" if lim["holds"] else f"MISSED by {margin}"
+            out.append(f"  {lim['text']:<{width}}  {value:<14} {state}")
     out.append(f"\n{result.message}")
     out += ["", CAUTION]
     return "\n".join(out)
@@ -148,11 +175,16 @@ def front_summary(result) -> str:
     return "\n".join(out)
 
 
+def _with_unit(text: str, unit: str | None) -> str:
+    return f"{text} {unit}" if unit else text
+
+
 def window_summary(w) -> str:
     share = float(w.window.mean())
     out = [f"{w.study}: {w.goal} over {w.x} [{w.x_unit}] and {w.y} [{w.y_unit}], "
            f"{len(w.x_values)} x {len(w.y_values)} cells ({w.method})",
-           f"  other decisions: " + (", ".join(f"{k} = {fmt(v)}" for k, v in w.fixed.items()) or "none"),
+           "  other decisions: " + (", ".join(_with_unit(f"{k} = {fmt(v)}", w.units.get(k)) for k, v in w.fixed.items())
+                                    or "none"),
            f"  every limit holds in {100 * share:.1f} % of the map"]
     for text, h in w.holds.items():
         out.append(f"  {text}: holds in {100 * float(h.mean()):.1f} %")
@@ -160,8 +192,9 @@ def window_summary(w) -> str:
         import numpy as np
         goal = np.where(w.window, w.maps[w.goal], np.nan)
         j, i = np.unravel_index(np.nanargmax(goal), goal.shape)
-        out.append(f"  best cell inside the window: {w.x} {fmt(w.x_values[i])}, {w.y} {fmt(w.y_values[j])}, "
-                   f"{w.goal} {fmt(goal[j, i])}")
+        out.append(f"  best cell inside the window: {_with_unit(f'{w.x} {fmt(w.x_values[i])}', w.x_unit)}, "
+                   f"{_with_unit(f'{w.y} {fmt(w.y_values[j])}', w.y_unit)}, "
+                   f"{_with_unit(f'{w.goal} {fmt(goal[j, i])}', w.units.get(w.goal))}")
     out.append(f"time: {w.timing.get('total', 0):.2f} s")
     out += ["", CAUTION]
     return "\n".join(out)

@@ -4,7 +4,7 @@ By the envelope theorem the multiplier of an active constraint is the rate of ch
 the constraint's bound (Luenberger and Ye, Linear and Nonlinear Programming, 4th ed., Springer 2016, section 11.8:
 sensitivity). The solver plug-in loads duals in that sense (d objective / d bound), so a limit's marginal is
 
-    d goal / d bound = sum over its constraints of dual * goal_scale / constraint_scale
+    d goal / d bound = (reduced cost of the pinned bound variable) * goal_scale / constraint_scale
 
 and a decision bound's marginal is the reduced cost of its scaled variable times goal_scale / decision_scale. Values
 are reported in the user's units: goal units per unit of the bound as the user wrote it.
@@ -68,12 +68,20 @@ class BoundReport:
                 "marginal": self.marginal, "marginal_unit": self.marginal_unit, "share": self.share}
 
 
+def limit_sensitivity(model: ReactorModel, lh) -> float:
+    """d goal / d bound of one limit, both scaled: the reduced cost of its pinned bound variable (the solver's
+    parameter sensitivity), independent of how the NL writer orients the constraint; for an elastic limit
+    (constant bound), the sum of its constraints' duals."""
+    if lh.level is not None:
+        return model.m.rc.get(lh.level, 0.0) or 0.0
+    return sum(model.m.dual.get(c, 0.0) or 0.0 for c in lh.constraints)
+
+
 def limit_reports(model: ReactorModel) -> list[LimitReport]:
     out = []
     for lh in model.limits:
         lim = lh.limit
-        duals = [model.m.dual.get(c, 0.0) or 0.0 for c in lh.constraints]
-        scaled = sum(duals)
+        scaled = limit_sensitivity(model, lh)
         if lim.metric is None:
             temps = model.temperatures()
             value_si = max(temps) if lim.sense == "<=" else min(temps)
@@ -85,6 +93,8 @@ def limit_reports(model: ReactorModel) -> list[LimitReport]:
         marginal = _goal_to_display(model, per_si) * unit_step(lim.unit, si_unit)
         value = convert(value_si, si_unit, lim.unit) if lim.unit else value_si
         active = abs(scaled) > ACTIVE_DUAL
+        if not active:
+            marginal = 0.0          # below the solver's noise: a limit that does not bind is worth nothing
         out.append(LimitReport(lim.text, value, lim.unit, active, marginal, _per(model, lim.name, lim.unit)))
     return out
 

@@ -4,8 +4,9 @@ Definitions (Levenspiel, Chemical Reaction Engineering, 3rd ed. 1999, ch. 7 and 
 Reaction Engineering, 5th ed. 2016, ch. 8), with F molar flows, 0 the inlet and A the key reactant:
 
 - conversion:A     X_A = (F_A0 - F_A) / F_A0
-- yield:B          Y_B = (F_B - F_B0) / F_A0 * |nu_A| / nu_B   (stoichiometric factor from the main reaction)
-- selectivity:B    S_B = (F_B - F_B0) / (F_A0 - F_A) * |nu_A| / nu_B   (overall selectivity)
+- yield:B          Y_B = (F_B - F_B0) / F_A0 * f_B   (f_B: stoichiometric factor along the path from A to B, the
+                   product of |nu_s| / nu_p over its reactions, chemistry.network.yield_paths)
+- selectivity:B    S_B = (F_B - F_B0) / (F_A0 - F_A) * f_B   (overall selectivity)
 - outlet:B         outlet concentration of B, mol/m^3 inside
 - productivity:B   net production rate per reactor volume, (F_B - F_B0) / V, mol/(m^3 s) inside
 - margin           (sum of product values - feed costs) per mol of key reactant fed, in the study's currency
