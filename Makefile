@@ -29,6 +29,7 @@ sweep: $(VENV)/.installed
 	$(BIN)/tubeyield report reports/results/oxidation --out reports/oxidation
 
 test: $(VENV)/.installed
+	$(BIN)/python -m pyflakes src tests
 	$(BIN)/python -m pytest -q
 
 bench: $(VENV)/.installed

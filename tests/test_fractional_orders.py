@@ -10,7 +10,7 @@ from scipy.integrate import solve_ivp
 
 from helpers import study_from_toml
 from tubeyield.reactor.simulate import simulate
-from tubeyield.study.schema import FRACTIONAL_ORDER_DELTA, power_factor
+from tubeyield.study.kinetics import FRACTIONAL_ORDER_DELTA, power_factor
 
 # Invented kinetics (tests only): A + O -> B, r = k c_A c_O^0.5; B + O -> C, r = k2 c_B c_O^0.5.
 HALF_ORDER = """

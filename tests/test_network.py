@@ -5,7 +5,6 @@ import subprocess
 import sys
 
 import numpy as np
-import pytest
 
 from helpers import SCENARIOS
 from tubeyield.chemistry.consistency import check_network, stoichiometric_consistency

@@ -4,7 +4,6 @@ import pyomo.environ as pyo
 import pytest
 from pyomo.opt import TerminationCondition
 
-import tubeyield.solve  # noqa: F401  registers the plug-in
 from tubeyield.errors import SolverUnavailable
 from tubeyield.solve.ipopt import NAME, termination_of
 

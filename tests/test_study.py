@@ -19,8 +19,8 @@ def test_demo_study_loads_in_si():
     study = load_study(SCENARIOS / "oxidation.toml")
     main = study.reaction("main")
     # 0.010 L/(mol s) = 1e-5 m^3/(mol s); 60 kJ/mol = 60000 J/mol
-    assert math.exp(main.rate.ln_k_ref) == pytest.approx(1e-5, rel=1e-12)
-    assert main.rate.Ea == 60000.0 and main.rate.T_ref == 350.0
+    assert math.exp(main.k.ln_k_ref) == pytest.approx(1e-5, rel=1e-12)
+    assert main.k.Ea == 60000.0 and main.k.T_ref == 350.0
     assert study.feed.flow == pytest.approx(2e-3 / 60, rel=1e-12)
     assert dict(study.feed.conc)["A"] == pytest.approx(1000.0)
     tau = study.decision("tau")
@@ -44,8 +44,8 @@ def test_pre_exponential_factor_equals_reference_form(base_doc):
     base_doc["reaction"][0]["A"] = f"{A!r} 1/s"
     study = study_from_dict(base_doc)
     r = study.reaction("r1")
-    assert math.exp(r.rate.ln_value(350.0, math)) == pytest.approx(0.1, rel=1e-12)
-    assert math.exp(r.rate.ln_value(400.0, math)) == pytest.approx(A * math.exp(-50000 / (R * 400)), rel=1e-12)
+    assert math.exp(r.k.ln_value(350.0, math)) == pytest.approx(0.1, rel=1e-12)
+    assert math.exp(r.k.ln_value(400.0, math)) == pytest.approx(A * math.exp(-50000 / (R * 400)), rel=1e-12)
 
 
 def test_equation_parsing():
@@ -59,9 +59,9 @@ def test_reversible_and_adsorption_units(base_doc):
     base_doc["reaction"][0].update(equation="A <=> B", K="4.0")
     base_doc["reaction"][1].update(law="adsorption", adsorption={"A": {"K": "0.5 L/mol"}}, denominator_power=2)
     study = study_from_dict(base_doc)
-    assert study.reaction("r1").equilibrium.ln_K_ref == pytest.approx(math.log(4.0))
+    assert study.reaction("r1").law.ln_K_ref == pytest.approx(math.log(4.0))
     # 0.5 L/mol = 5e-4 m^3/mol
-    assert math.exp(study.reaction("r2").adsorption[0][1].ln_K_ref) == pytest.approx(5e-4)
+    assert math.exp(study.reaction("r2").law.terms[0][1].ln_K_ref) == pytest.approx(5e-4)
 
 
 def test_include_shares_one_network(tmp_path):

@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from helpers import SCENARIOS, study_from_toml
+from helpers import study_from_toml
 from tubeyield.errors import StudyError
 from tubeyield.jobs.scenario import scenarios
 from tubeyield.jobs.store import Store, StoreLocked
@@ -345,7 +345,19 @@ def test_sweep_report_summarizes_and_the_report_shows_it(tmp_path, reference_run
     summary = json.loads((res / "sweep-summary.json").read_text())
     assert summary["n"] == 12 and {row["path"] for row in summary["influence"]} == \
         {"reaction.second.Ea", "reaction.first.k"}
-    assert summary["robust"]["rows"] and all(0 <= row["share"] <= 1 for row in summary["robust"]["rows"])
+    # each candidate's share, recomputed here: simulate it in every stored scenario and count where all limits hold
+    from tubeyield.jobs.evaluate import evaluate
+    from tubeyield.jobs.scenario import apply_values
+    from tubeyield.jobs.store import open_existing
+    from tubeyield.study import load_study
+    base = load_study(study)
+    with open_existing(store) as st:
+        inputs = [r["inputs"] for r in st.rows()]
+    assert summary["robust"]["rows"]
+    for row in summary["robust"]["rows"][:2]:
+        held = [all(lim["holds"] for lim in evaluate(apply_values(base, values), row["point"]).limits)
+                for values in inputs]
+        assert row["share"] == pytest.approx(sum(held) / len(held), abs=1e-12), row["label"]
     r = subprocess.run([sys.executable, "-m", "tubeyield", "report", str(res), "--out", str(tmp_path / "rep")],
                        capture_output=True, text=True, timeout=300)
     assert r.returncode == 0, r.stderr
@@ -441,7 +453,13 @@ def test_losing_every_worker_stops_without_marking_anything_and_resume_finishes(
         try:
             _wait_for_rows(store, 4, proc)
             os.killpg(cluster.workers[0].pid, signal.SIGKILL)        # the only worker
-            out, err = proc.communicate(timeout=300)
+            try:
+                out, err = proc.communicate(timeout=300)
+            except subprocess.TimeoutExpired:
+                os.kill(proc.pid, signal.SIGUSR1)                    # the CLI dumps every thread's stack
+                time.sleep(2)
+                os.killpg(proc.pid, signal.SIGKILL)
+                pytest.fail("the sweep hung after its only worker died:\n" + proc.communicate()[1][-8000:])
         finally:
             if proc.poll() is None:
                 os.killpg(proc.pid, signal.SIGKILL)

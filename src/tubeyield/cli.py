@@ -9,7 +9,10 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import faulthandler
 import json
+import os
+import signal
 import sys
 
 from tubeyield import __version__
@@ -83,6 +86,9 @@ def _parser() -> argparse.ArgumentParser:
 
 def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
+    if hasattr(signal, "SIGUSR1"):
+        # `kill -USR1 <pid>` prints every thread's stack to stderr: what a long run is doing, without stopping it
+        faulthandler.register(signal.SIGUSR1, all_threads=True)
     try:
         with contextlib.ExitStack() as guards:
             _GUARDS.append(guards)
@@ -93,6 +99,10 @@ def main(argv: list[str] | None = None) -> int:
     except StudyError as exc:
         print(f"error: {exc.line()}", file=sys.stderr)
         return EXIT_USER
+    except BrokenPipeError:
+        # the reader went away (`tubeyield check ... | head`): not an error of the study; stop quietly
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return EXIT_OK
     except OSError as exc:
         # a path the user gave cannot be written or read (--save, --out, --profile, --store): one line, no traceback;
         # files are written atomically, so nothing partial is left
@@ -166,7 +176,7 @@ def _check(args) -> int:
         width = max(len(r.id) for r in study.reactions)
         for r in study.reactions:
             orders = " ".join(f"{s}^{n:g}" for s, n in r.orders if n)
-            print(f"  {r.id:<{width}}  {r.equation:<28} {r.law:<10} r ~ {orders}")
+            print(f"  {r.id:<{width}}  {r.equation:<28} {r.law.name:<10} r ~ {orders}")
         print("stoichiometric matrix (species x reactions):")
         print("  " + " " * 6 + "".join(f"{rid:>9.8}" for rid in net.reaction_ids))
         for s, row in zip(net.species, net.matrix):
@@ -253,7 +263,7 @@ def _window(args) -> int:
     from pathlib import Path
 
     from tubeyield.jobs.optimize import optimize
-    from tubeyield.jobs.window import window
+    from tubeyield.jobs.window import optimum_marker, window
     from tubeyield.report.files import save_inputs, write_json
 
     study = _load(args.study, "window", "x, y and points")
@@ -269,12 +279,7 @@ def _window(args) -> int:
     else:
         res = optimize(study)
         base, status = res.decisions_si, res.status
-    optimum = None
-    if status in SOLVED:
-        dx, dy = study.decision(study.window.x), study.decision(study.window.y)
-        from tubeyield.study.units import convert
-        optimum = {"x": convert(base[dx.name], dx.si_unit, dx.unit) if dx.unit else base[dx.name],
-                   "y": convert(base[dy.name], dy.si_unit, dy.unit) if dy.unit else base[dy.name]}
+    optimum = optimum_marker(study, base) if status in SOLVED else None
     _at_least(args.workers, "--workers", 1, "a number of processes")
     result = window(study, base, workers=args.workers, optimum=optimum)
     if args.save:

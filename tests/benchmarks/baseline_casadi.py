@@ -12,7 +12,7 @@ import time
 import casadi as ca
 import numpy as np
 
-from problem import R, Problem
+from problem import Problem
 
 IPOPT = {"mu_strategy": "adaptive", "mumps_scaling": 8, "mumps_permuting_scaling": 0, "tol": 1e-10,
          "acceptable_tol": 1e-7, "max_iter": 1000, "bound_push": 1e-8, "bound_frac": 1e-8,

@@ -68,7 +68,7 @@ def from_study(study) -> Problem:
     N = np.zeros((len(sym), len(study.reactions)))
     orders = np.zeros((len(study.reactions), len(sym)))
     for j, r in enumerate(study.reactions):
-        if r.law != "power":
+        if r.law.name != "power":
             raise ValueError("the bench baselines take power-law networks")
         for s, c in r.stoichiometry().items():
             N[idx[s], j] = c
@@ -86,8 +86,8 @@ def from_study(study) -> Problem:
     temps = [d.high for d in study.decisions if d.si_unit == "K"] + \
             [lim.bound for lim in study.goal.limits if lim.metric is None]
     T_high = min([T_dec[0].high] + [lim.bound for lim in study.goal.limits if lim.metric is None and lim.sense == "<="])
-    return Problem(sym, N, orders, np.array([r.rate.ln_k_ref for r in study.reactions]),
-                   np.array([r.rate.Ea for r in study.reactions]), np.array([r.rate.T_ref for r in study.reactions]),
+    return Problem(sym, N, orders, np.array([r.k.ln_k_ref for r in study.reactions]),
+                   np.array([r.k.Ea for r in study.reactions]), np.array([r.k.T_ref for r in study.reactions]),
                    c_ref, np.array([conc.get(s, 0.0) / c_ref for s in sym]), idx[study.goal.key],
                    idx[study.goal.metric.species], idx[ratio[0].name[6:]] if ratio else None,
                    (study.decision("tau").low, study.decision("tau").high), (T_dec[0].low, T_high),

@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import argparse
 import csv
-import dataclasses
 import json
 import os
 import platform
@@ -468,7 +467,6 @@ def _targets(by) -> list:
     if "f" in by:
         els = [e for e in by["f"]["scaling"]["elements"] if "error" not in e]
         if len(els) >= 2:
-            per = [e["seconds"] / e["elements"] for e in els]
             growth = (els[-1]["seconds"] / els[0]["seconds"]) / (els[-1]["elements"] / els[0]["elements"])
             line("cost growing no worse than linearly in elements",
                  f"time x{els[-1]['seconds'] / els[0]['seconds']:.1f} for elements x{els[-1]['elements'] / els[0]['elements']:.0f}",

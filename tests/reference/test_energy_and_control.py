@@ -20,7 +20,7 @@ import pytest
 from helpers import study_from_toml
 from tubeyield.jobs.evaluate import evaluate
 from tubeyield.jobs.optimize import optimize
-from tubeyield.study.schema import GAS_CONSTANT as R
+from tubeyield.study.kinetics import GAS_CONSTANT as R
 
 # ------------------------------------------------------------------------------------------------ adiabatic [F5]
 

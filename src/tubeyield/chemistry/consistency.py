@@ -49,6 +49,17 @@ class CheckReport:
     def valid(self) -> bool:
         return bool(self.consistent) and not self.element_errors and not self.mass_errors
 
+    def to_frame(self):
+        """One row per check (pandas): stoichiometric consistency, then each element or mass balance error and each
+        warning, with columns check, ok, detail."""
+        import pandas as pd
+        rows = [{"check": "stoichiometric consistency", "ok": self.consistent,
+                 "detail": ", ".join(self.faulty_reactions)}]
+        rows += [{"check": "element balance", "ok": False, "detail": e} for e in self.element_errors]
+        rows += [{"check": "mass balance", "ok": False, "detail": e} for e in self.mass_errors]
+        rows += [{"check": "warning", "ok": None, "detail": w} for w in self.warnings]
+        return pd.DataFrame(rows)
+
     def errors(self) -> list[str]:
         out = []
         if self.consistent is False:

@@ -111,7 +111,7 @@ class DaskExecutor:
         pass
 
     def shutdown(self, cancel: bool = False) -> None:
-        self.client.close()
+        self.client.close(timeout=10)
 
     def describe(self) -> str:
         n = len(self.client.scheduler_info().get("workers", {}))

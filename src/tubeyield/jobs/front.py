@@ -30,6 +30,7 @@ from tubeyield import __version__
 from tubeyield import status as st
 from tubeyield.jobs.optimize import SAME_OPTIMUM, optimize
 from tubeyield.jobs.problem import prepare
+from tubeyield.jobs.refine import verify_and_refine
 from tubeyield.jobs.result import Result, _finite
 from tubeyield.reactor.metrics import all_metrics, metric_display
 from tubeyield.reactor.verify import compare, reference
@@ -67,6 +68,10 @@ class FrontResult:
 
     def table(self):
         return front_table(self.to_dict())
+
+    def to_frame(self):
+        """One row per level (pandas): see front_table."""
+        return self.table()
 
 
 def front_table(front: dict):
@@ -157,6 +162,12 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
     previous = None
     for i, level in enumerate(levels):
         point = _level_point(model, study, spec, float(level), solver, options, previous)
+        if point is not None and point["status"] == st.UNVERIFIED:
+            # this level needs a finer mesh than the front model's: refine for it alone (the front goes on
+            # on its own model)
+            previous = model.snapshot()
+            point = _refined_point(model, fstudy, study, spec, float(level), solver, options, timing) or point
+            model.restore(previous)
         if point is None and i == len(levels) - 1:
             for inset in (1e-4, 1e-2):
                 inner = x_end - sign * inset * abs(x_end - x_start)
@@ -233,6 +244,20 @@ def _level_point(model, study: Study, spec, level: float, solver, options, previ
             model.restore(previous)
         return None
     return _point(model, study, spec, level, solver)
+
+
+def _refined_point(model, fstudy: Study, study: Study, spec, level: float, solver, options, timing) -> dict | None:
+    """The point at `level` verified on a refined mesh (jobs/refine.py, the level constraint added to each finer
+    model); None when even the finest mesh does not pass."""
+    _, x_scale = model.levels[LEVEL]
+    sense = ">=" if spec.x_sense == "max" else "<="
+    verified = verify_and_refine(fstudy, model, solver, options, timing,
+                                 extend=lambda m: m.add_level(LEVEL, spec.x, sense, level, x_scale))
+    if verified.model is model or not verified.check.passed:
+        return None
+    point = _point(verified.model, study, spec, level, solver)
+    point["note"] = f"verified on a finer mesh of {verified.model.elements} elements"
+    return point
 
 
 def _start_from(model, study: Study, decisions: dict) -> None:

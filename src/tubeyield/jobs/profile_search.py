@@ -91,9 +91,9 @@ def families(study: Study, others: dict) -> list[Candidate]:
     """Uniform (low, middle, high), falling and rising ramps, simulated and ranked."""
     T = temperature_decisions(study)[0]
     shapes = {
-        f"uniform at the lower bound": PiecewiseLinear([0.0, 1.0], [T.low, T.low]),
-        f"uniform in the middle": PiecewiseLinear([0.0, 1.0], [0.5 * (T.low + T.high)] * 2),
-        f"uniform at the upper bound": PiecewiseLinear([0.0, 1.0], [T.high, T.high]),
+        "uniform at the lower bound": PiecewiseLinear([0.0, 1.0], [T.low, T.low]),
+        "uniform in the middle": PiecewiseLinear([0.0, 1.0], [0.5 * (T.low + T.high)] * 2),
+        "uniform at the upper bound": PiecewiseLinear([0.0, 1.0], [T.high, T.high]),
         "falling ramp": PiecewiseLinear([0.0, 1.0], [T.high, T.low]),
         "rising ramp": PiecewiseLinear([0.0, 1.0], [T.low, T.high]),
     }

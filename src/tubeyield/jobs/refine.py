@@ -61,9 +61,10 @@ def _checked(model: ReactorModel, tol: float, timing: dict):
 
 
 def verify_and_refine(study: Study, model: ReactorModel, solver, options: dict, timing: dict,
-                      tee: bool = False) -> Verified:
+                      tee: bool = False, extend=None) -> Verified:
     """Re-simulate, refine the mesh until the check passes (or numerics.max_elements), then hold the temperature
-    limits between mesh points. The returned model may be a new, finer one."""
+    limits between mesh points. The returned model may be a new, finer one; `extend(model)` adds to each finer
+    model what the caller added to the first beyond the study's goal and limits (a front's level constraint)."""
     tol = study.numerics.check_tolerance
     sim, check = _checked(model, tol, timing)
     notes, refinements = [], 0
@@ -72,7 +73,7 @@ def verify_and_refine(study: Study, model: ReactorModel, solver, options: dict, 
         if n_new <= model.elements:
             notes.append(f"the mesh reached numerics.max_elements = {study.numerics.max_elements}")
             break
-        finer = _refined(study, model, sim, n_new, solver, options, timing, tee)
+        finer = _refined(study, model, sim, n_new, solver, options, timing, tee, extend)
         if finer is None:
             notes.append(f"the refined mesh of {n_new} elements did not converge, even with the recovery options")
             break
@@ -84,7 +85,8 @@ def verify_and_refine(study: Study, model: ReactorModel, solver, options: dict, 
     return Verified(model, check, sim, hot, held)
 
 
-def _refined(study: Study, model: ReactorModel, sim, n_new: int, solver, options: dict, timing: dict, tee: bool):
+def _refined(study: Study, model: ReactorModel, sim, n_new: int, solver, options: dict, timing: dict, tee: bool,
+             extend=None):
     """The problem on an equidistributed mesh of n_new elements, solved from `sim`; None when it does not converge."""
     floor = FLOOR_SHARE * sum(abs(v) for v in sim.u_in.values())
     errors = model.element_errors(sim, floor)
@@ -94,6 +96,8 @@ def _refined(study: Study, model: ReactorModel, sim, n_new: int, solver, options
     T_fun = model.temperature_function()
     t = time.perf_counter()
     finer = prepare(study, edges, scale_hint=model.goal_scale, start=sim)
+    if extend is not None:
+        extend(finer)
     timing["build"] = timing.get("build", 0.0) + time.perf_counter() - t
     if "T" in finer.decisions and finer.decisions["T"].profile:
         decisions["T"] = [T_fun(z) for z in finer.profile_positions()]

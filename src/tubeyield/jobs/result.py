@@ -38,6 +38,25 @@ class Result:
             "warnings": self.warnings, "decisions_si": self.decisions_si,
         })
 
+    def to_frame(self):
+        """One row per number of the result (pandas): decisions, goal, metrics, limits, outlet concentrations, with
+        columns part, name, value, unit and, for limits, active, marginal and holds."""
+        import pandas as pd
+        rows = []
+        for name, d in self.decisions.items():
+            value = d["value"] if not isinstance(d["value"], list) else None
+            rows.append({"part": "decision", "name": name, "value": value, "unit": d.get("unit", "")})
+        if self.goal.get("value") is not None:
+            rows.append({"part": "goal", "name": self.goal["metric"], "value": self.goal["value"],
+                         "unit": self.goal.get("unit", "")})
+        rows += [{"part": "metric", "name": k, "value": m["value"], "unit": m["unit"]} for k, m in self.metrics.items()]
+        for lim in self.limits:
+            rows.append({"part": "limit", "name": lim["text"], "value": lim["value"], "unit": lim["unit"],
+                         "active": lim.get("active"), "marginal": lim.get("marginal"), "holds": lim.get("holds")})
+        rows += [{"part": "outlet", "name": s, "value": o["conc"], "unit": o["conc_unit"]}
+                 for s, o in self.outlet.items()]
+        return pd.DataFrame(rows)
+
 
 def _finite(obj):
     """JSON has no NaN or infinity: write them as null."""

@@ -14,6 +14,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from tubeyield.errors import StudyError
 from tubeyield.study.schema import Study, Variation
 
 
@@ -27,19 +28,25 @@ def apply_values(study: Study, values: dict[str, float]) -> Study:
 def _apply(study: Study, path: str, v: float) -> Study:
     parts = path.split(".")
     if parts[0] == "reaction":
-        rid, attr = parts[1], parts[2]
+        rid, attr = parts[1], ".".join(parts[2:])
+        if attr in ("k", "k_factor") and v <= 0:
+            raise StudyError(path, f"a positive value; sampled {v:g}")
         rs = []
         for r in study.reactions:
             if rid in ("*", r.id):
                 if attr == "k":
-                    r = replace(r, rate=replace(r.rate, ln_k_ref=math.log(v)))
+                    r = replace(r, k=replace(r.k, ln_k_ref=math.log(v)))
                 elif attr == "k_factor":
-                    r = replace(r, rate=replace(r.rate, ln_k_ref=r.rate.ln_k_ref + math.log(v)))
+                    r = replace(r, k=replace(r.k, ln_k_ref=r.k.ln_k_ref + math.log(v)))
                 elif attr == "Ea":
-                    r = replace(r, rate=replace(r.rate, Ea=v))
+                    r = replace(r, k=replace(r.k, Ea=v))
                 elif attr == "dH":
-                    eq = replace(r.equilibrium, dH=v) if r.equilibrium else None
-                    r = replace(r, dH=v, equilibrium=eq)
+                    r = replace(r, dH=v)
+                else:                                   # a constant of the rate law (study/laws.py)
+                    try:
+                        r = replace(r, law=r.law.with_path(attr, v))
+                    except StudyError as exc:
+                        raise StudyError(path, exc.expected) from None
             rs.append(r)
         return replace(study, reactions=tuple(rs))
     if parts[0] == "feed":

@@ -93,8 +93,8 @@ def _bounded(sc: Study) -> Study:
 def _check_scenario(sc: Study) -> None:
     """Sampled values can leave the physical range (a normal distribution has tails): say so, do not solve."""
     for r in sc.reactions:
-        if r.rate.Ea < 0:
-            raise StudyError(f"reaction.{r.id}.Ea", f"a non-negative activation energy; sampled {r.rate.Ea:g} J/mol")
+        if r.k.Ea < 0:
+            raise StudyError(f"reaction.{r.id}.Ea", f"a non-negative activation energy; sampled {r.k.Ea:g} J/mol")
     for s, c in sc.feed.conc:
         if c < 0:
             raise StudyError(f"feed.conc.{s}", f"a non-negative concentration; sampled {c:g} mol/m^3")
@@ -203,6 +203,13 @@ class SweepOutcome:
     where: str
     stopped: str = ""          # why the sweep stopped before the end (no workers left), "" when it did not
     not_run: int = 0           # scenarios neither finished nor recorded (run them with --resume)
+    store: str = ""            # the store's path
+
+    def to_frame(self):
+        """Every scenario the store holds, one row each (pandas; Store.table)."""
+        from tubeyield.jobs.store import open_existing
+        with open_existing(self.store) as store:
+            return store.table()
 
 
 POLL = 2.0                     # s between checks on the workers while waiting for results
@@ -227,7 +234,7 @@ def sweep(study: Study, store_path, *, workers: int | None = None, dask: str | N
         todo = [s for s in all_scenarios if s.id not in done]
         counts: dict = {}
         outcome = SweepOutcome(len(all_scenarios), len(all_scenarios) - len(todo), 0, counts, 0.0, False,
-                               "nothing to run")
+                               "nothing to run", store=str(store_path))
         if todo:
             from tubeyield.jobs.executor import DaskExecutor, LocalExecutor
             executor = DaskExecutor(dask) if dask else LocalExecutor(workers)

@@ -59,6 +59,20 @@ class WindowResult:
                         "timing": self.timing, "method": self.method, "units": self.units,
                         "window_share": float(np.mean(self.window))})
 
+    def to_frame(self):
+        """One row per cell (pandas): the two decisions, the goal and each limit's quantity, whether each limit
+        holds, and whether the cell is inside the window."""
+        import pandas as pd
+        rows = []
+        for j, yv in enumerate(self.y_values):
+            for i, xv in enumerate(self.x_values):
+                row = {f"{self.x} [{self.x_unit}]": xv, f"{self.y} [{self.y_unit}]": yv}
+                row.update({k: v[j, i] for k, v in self.maps.items()})
+                row.update({f"holds: {k}": bool(v[j, i]) for k, v in self.holds.items()})
+                row["window"] = bool(self.window[j, i])
+                rows.append(row)
+        return pd.DataFrame(rows)
+
     @classmethod
     def from_dict(cls, d: dict) -> "WindowResult":
         return cls(d["study"], d["x"], d["y"], d["x_unit"], d["y_unit"], np.array(d["x_values"]),
@@ -104,6 +118,13 @@ def _holds(study: Study, values: dict) -> dict:
         tol = 1e-9 * max(1.0, abs(bound))
         out[lim.text] = (v <= bound + tol) if lim.sense == "<=" else (v >= bound - tol)
     return out
+
+
+def optimum_marker(study: Study, decisions_si: dict) -> dict:
+    """Where an optimum sits on the window's two axes, in user units: {"x": .., "y": ..}."""
+    dx, dy = study.decision(study.window.x), study.decision(study.window.y)
+    return {"x": convert(decisions_si[dx.name], dx.si_unit, dx.unit) if dx.unit else decisions_si[dx.name],
+            "y": convert(decisions_si[dy.name], dy.si_unit, dy.unit) if dy.unit else decisions_si[dy.name]}
 
 
 def window(study: Study, base: dict, *, workers: int | None = None, optimum: dict | None = None) -> WindowResult:

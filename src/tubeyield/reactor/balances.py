@@ -27,7 +27,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from tubeyield.study.schema import GAS_CONSTANT, Study
+from tubeyield.study.kinetics import GAS_CONSTANT
+from tubeyield.study.schema import Study
 
 
 def concentration_scale(study: Study) -> float:

@@ -9,21 +9,19 @@ from __future__ import annotations
 
 from dataclasses import replace
 
-from tubeyield.study.schema import Arrhenius, Reaction, Study, VantHoff
+from tubeyield.study.kinetics import Arrhenius
+from tubeyield.study.schema import Reaction, Study
 
 
 def study_parameters(study: Study) -> dict[str, float]:
     """Every number the balances use that is not structural, in SI: kinetics, heat effects, feed, heat transfer."""
     p: dict[str, float] = {}
     for r in study.reactions:
-        p[f"lnk:{r.id}"] = r.rate.ln_k_ref
-        p[f"Ea:{r.id}"] = r.rate.Ea
+        p[f"lnk:{r.id}"] = r.k.ln_k_ref
+        p[f"Ea:{r.id}"] = r.k.Ea
         p[f"dH:{r.id}"] = r.dH or 0.0
-        if r.equilibrium is not None:
-            p[f"lnK:{r.id}"] = r.equilibrium.ln_K_ref
-        for s, ads in r.adsorption:
-            p[f"lnKa:{r.id}:{s}"] = ads.ln_K_ref
-            p[f"dHa:{r.id}:{s}"] = ads.dH
+        for name, v in r.law.constants().items():       # the law's own constants (study/laws.py)
+            p[f"law:{r.id}:{name}"] = v
     inlet = study.feed.inlet()
     for s in study.symbols:
         p[f"in:{s}"] = inlet.get(s, 0.0)
@@ -44,8 +42,7 @@ def parametric_reactions(study: Study, par) -> tuple[Reaction, ...]:
     """
     out = []
     for r in study.reactions:
-        rate = Arrhenius(par[f"lnk:{r.id}"], r.rate.T_ref, par[f"Ea:{r.id}"])
-        eq = VantHoff(par[f"lnK:{r.id}"], r.equilibrium.T_ref, par[f"dH:{r.id}"]) if r.equilibrium else None
-        ads = tuple((s, VantHoff(par[f"lnKa:{r.id}:{s}"], a.T_ref, par[f"dHa:{r.id}:{s}"])) for s, a in r.adsorption)
-        out.append(replace(r, rate=rate, equilibrium=eq, adsorption=ads, dH=par[f"dH:{r.id}"]))
+        k = Arrhenius(par[f"lnk:{r.id}"], r.k.T_ref, par[f"Ea:{r.id}"])
+        law = r.law.with_constants({name: par[f"law:{r.id}:{name}"] for name in r.law.constants()})
+        out.append(replace(r, k=k, law=law, dH=par[f"dH:{r.id}"]))
     return tuple(out)

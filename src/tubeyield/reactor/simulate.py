@@ -364,8 +364,27 @@ def _tanks(sim: Simulation, kin: Kinetics, T_fun, T_in, guess) -> None:
         if not sol.success or np.max(np.abs(residual(sol.x))) > 1e-9:
             sol = root(residual, sol.x, method="lm", tol=1e-14)
         if np.max(np.abs(residual(sol.x))) > 1e-8:
+            # Newton from the start failed (an adiabatic or cooled tank can have several steady states and a
+            # narrow basin around each): the steady state the tank reaches when started full of its feed, from
+            # the start-up transient, then polished (pseudo-transient continuation; Kelley and Keyes, SIAM J.
+            # Numer. Anal. 35 (1998) 508).
+            x_start = np.array([prev[s] for s in symbols] + ([prev_T] if energy else []), dtype=float)
+            sol = root(residual, _start_up(residual, x_start, tau_k), method="hybr", tol=1e-14)
+        if np.max(np.abs(residual(sol.x))) > 1e-8:
             raise SimulationFailed(f"reference tank solve failed in tank {k + 1}: {sol.message}")
         tank = States({s: float(sol.x[i]) for i, s in enumerate(symbols)}, float(sol.x[n]) if energy else float(T_fun))
         sim.tanks.append(tank)
         prev, prev_T = dict(tank.flows), tank.T
     sim.integrator = "scipy optimize.root (MINPACK hybrid), residual <= 1e-9"
+
+
+START_UP_TIMES = 200.0   # residence times the start-up transient of a tank is followed for
+
+
+def _start_up(residual, x0: np.ndarray, tau: float) -> np.ndarray:
+    """The state of a tank START_UP_TIMES residence times after it started full of its feed. The residual of the
+    steady state is (x - x_feed - tau f(x)) / scale, so d x / d t = -residual / tau is the tank's transient in
+    the same scaling (mass balances, and the energy balance divided by the stream's heat capacity)."""
+    sol = solve_ivp(lambda t, x: -residual(x) / tau, (0.0, START_UP_TIMES * tau), x0, method="LSODA",
+                    rtol=1e-10, atol=1e-12)
+    return sol.y[:, -1]

@@ -178,15 +178,7 @@ def _chosen_front_points(front: dict):
 
 
 def _window_csv(w, path: Path) -> None:
-    rows = []
-    for j, yv in enumerate(w.y_values):
-        for i, xv in enumerate(w.x_values):
-            row = {f"{w.x} [{w.x_unit}]": xv, f"{w.y} [{w.y_unit}]": yv}
-            row.update({k: v[j, i] for k, v in w.maps.items()})
-            row.update({f"holds: {k}": bool(v[j, i]) for k, v in w.holds.items()})
-            row["window"] = bool(w.window[j, i])
-            rows.append(row)
-    write_atomic(path, pd.DataFrame(rows).to_csv(index=False))
+    write_atomic(path, w.to_frame().to_csv(index=False))
 
 
 def _network_context(study, net, report) -> dict:
@@ -195,9 +187,9 @@ def _network_context(study, net, report) -> dict:
     species = [{"symbol": s.symbol, "label": s.label, "formula": s.formula or "", "Cp": fmt(s.Cp) if s.Cp else "",
                 "feed": (f"{inlet[s.symbol] / 1000:.4g} mol/L" if study.feed.phase == "liquid" else
                          f"y = {inlet[s.symbol]:.4g}") if inlet.get(s.symbol) else ""} for s in study.species]
-    reactions = [{"id": r.id, "equation": r.equation, "law": r.law,
+    reactions = [{"id": r.id, "equation": r.equation, "law": r.law.name,
                   "orders": ", ".join(f"{s}: {n:g}" for s, n in r.orders),
-                  "k": f"{math.exp(r.rate.ln_k_ref):.4g}", "T_ref": fmt(r.rate.T_ref), "Ea": fmt(r.rate.Ea / 1000),
+                  "k": f"{math.exp(r.k.ln_k_ref):.4g}", "T_ref": fmt(r.k.T_ref), "Ea": fmt(r.k.Ea / 1000),
                   "dH": fmt(r.dH / 1000) if r.dH is not None else ""} for r in study.reactions]
     matrix = [{"species": s, "values": [f"{v:g}" for v in row]} for s, row in zip(net.species, net.matrix)]
     return {"species": species, "reactions": reactions, "matrix": matrix, "reaction_ids": net.reaction_ids,

@@ -7,7 +7,7 @@ import shutil
 import pyomo.environ as pyo
 
 from tubeyield.errors import StudyError
-from tubeyield.solve import ipopt as _plugin  # noqa: F401  (registers the plug-in with Pyomo's SolverFactory)
+# importing the plug-in module registers it with Pyomo's SolverFactory
 from tubeyield.solve.ipopt import ACCEPTABLE_CONDITIONS, NAME, OK_CONDITIONS
 
 

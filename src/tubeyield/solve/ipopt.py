@@ -115,11 +115,10 @@ class BundledIpopt:
     # ------------------------------------------------------------------------------------------- Pyomo's interface
 
     def available(self, exception_flag: bool = True) -> bool:
-        try:
-            import casadi  # noqa: F401
-        except ImportError:
+        import importlib.util
+        if importlib.util.find_spec("casadi") is None:
             if exception_flag:
-                raise SolverUnavailable("the casadi package (which bundles Ipopt) is not installed") from None
+                raise SolverUnavailable("the casadi package (which bundles Ipopt) is not installed")
             return False
         return True
 

@@ -17,7 +17,8 @@ from tubeyield.study.read_network import merge_unique, read_reactions, read_spec
 from tubeyield.study.read_operation import read_feed, read_operate, read_reactor
 from tubeyield.study.read_sweep import read_sweep
 from tubeyield.study import caps
-from tubeyield.study.schema import GAS_CONSTANT, Feed, Reactor, SourceFile, Species, Study
+from tubeyield.study.kinetics import GAS_CONSTANT
+from tubeyield.study.schema import Feed, Reactor, SourceFile, Species, Study
 from tubeyield.study.toml import Table, parse_toml, read_text
 
 NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9 _.+()-]{0,99}$")
@@ -215,9 +216,8 @@ def check_damkohler(reactions, feed: Feed, decisions, goal) -> None:
         c = feed.pressure / (GAS_CONSTANT * (min(temps) if temps else 298.15))
     c = max(c, 1e-300)
     for r in reactions:
-        T = max(temps) if temps else r.rate.T_ref
-        order = sum(n for _, n in r.orders)
-        ln_da = r.rate.ln_value(T, math) + math.log(tau) + (order - 1.0) * math.log(c)
+        T = max(temps) if temps else r.k.T_ref
+        ln_da = r.k.ln_value(T, math) + math.log(tau) - r.k_power * math.log(c)
         if ln_da > math.log(caps.MAX_DAMKOHLER):
             raise StudyError(f"reaction.{r.id}.k", f"a rate constant whose Damkoehler number k tau c^(n-1) stays "
                                                    f"below {caps.MAX_DAMKOHLER:g} over the study's temperatures and "

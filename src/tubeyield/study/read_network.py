@@ -7,11 +7,11 @@ import math
 
 from tubeyield.errors import StudyError
 from tubeyield.study.equation import SYMBOL, parse_equation
-from tubeyield.study.schema import GAS_CONSTANT, Arrhenius, Reaction, Species, VantHoff
+from tubeyield.study.kinetics import GAS_CONSTANT, Arrhenius
+from tubeyield.study.laws import LAW_KEYS, LAWS, LawContext
+from tubeyield.study.schema import Reaction, Species
 from tubeyield.study.toml import Table, number
 from tubeyield.study.units import rate_constant_to_si, to_si
-
-LAWS = ("power", "reversible", "adsorption")
 
 
 def read_species(data: dict, path: str) -> list[Species]:
@@ -41,8 +41,8 @@ def read_species(data: dict, path: str) -> list[Species]:
 
 # ------------------------------------------------------------------------------------------------------- reactions
 
-_REACTION_KEYS = ("id", "equation", "law", "orders", "reverse_orders", "k", "A", "T_ref", "Ea", "K", "dH",
-                  "adsorption", "denominator_power", "label")
+_COMMON_KEYS = ("id", "equation", "law", "orders", "k", "A", "T_ref", "Ea", "dH", "label")
+_REACTION_KEYS = _COMMON_KEYS + tuple(k for k in LAW_KEYS if k not in _COMMON_KEYS)
 
 
 def read_reactions(entries: list) -> list["_RawReaction"]:
@@ -90,12 +90,20 @@ def resolve_reaction(raw, symbols: set[str], index: int) -> Reaction:
     if all(abs(v) < 1e-12 for v in net.values()):
         raise StudyError(t.key("equation"), f"a reaction that changes something; {eq_text!r} has no net change")
 
-    law = t.take("law", "reversible" if eq.reversible else "power", types=str)
-    if law not in LAWS:
-        raise StudyError(t.key("law"), f"one of {', '.join(LAWS)}, got {law!r}")
-    if eq.reversible != (law == "reversible"):
-        raise StudyError(t.key("law"), "law 'reversible' with a '<=>' equation" if eq.reversible else
-                         f"a '<=>' equation for law 'reversible'; {eq_text!r} is written with '->'")
+    name = t.take("law", "reversible" if eq.reversible else "power", types=str)
+    if name not in LAWS:
+        hint = difflib.get_close_matches(name, LAWS, n=1)
+        raise StudyError(t.key("law"), f"one of {', '.join(LAWS)}, got {name!r}"
+                                       + (f" (did you mean {hint[0]!r}?)" if hint else ""))
+    law_cls = LAWS[name]
+    if eq.reversible != law_cls.reversible:
+        raise StudyError(t.key("law"), "a law for reversible reactions (reversible) with a '<=>' equation"
+                         if eq.reversible else
+                         f"a '<=>' equation for law {name!r}; {eq_text!r} is written with '->'")
+    for other in LAW_KEYS:
+        if other not in law_cls.keys and other not in _COMMON_KEYS and t.has(other):
+            owners = [n for n, c in LAWS.items() if other in c.keys]
+            raise StudyError(t.key(other), f"only for law = {' or '.join(repr(o) for o in owners)}")
 
     orders = _orders(t, "orders", dict(eq.reactants), symbols)
     total = sum(n for _, n in orders)
@@ -111,7 +119,7 @@ def resolve_reaction(raw, symbols: set[str], index: int) -> Reaction:
     if has_k == has_A:
         raise StudyError(t.key("k"), "either k (rate constant at T_ref) or A (pre-exponential factor), exactly one")
     if has_k:
-        k = rate_constant_to_si(t.take("k"), 1.0 - total, t.key("k"))
+        k = rate_constant_to_si(t.take("k"), law_cls.k_power(total), t.key("k"))
         if k <= 0:
             raise StudyError(t.key("k"), f"a positive rate constant, got {t.data['k']!r}")
         if T_ref_si is None and Ea_si != 0:
@@ -119,7 +127,7 @@ def resolve_reaction(raw, symbols: set[str], index: int) -> Reaction:
         T_ref_si = T_ref_si or 298.15
         rate = Arrhenius(math.log(k), T_ref_si, Ea_si)
     else:
-        A = rate_constant_to_si(t.take("A"), 1.0 - total, t.key("A"))
+        A = rate_constant_to_si(t.take("A"), law_cls.k_power(total), t.key("A"))
         if A <= 0:
             raise StudyError(t.key("A"), f"a positive pre-exponential factor, got {t.data['A']!r}")
         T_ref_si = T_ref_si or 298.15
@@ -128,49 +136,13 @@ def resolve_reaction(raw, symbols: set[str], index: int) -> Reaction:
 
     dH = t.take("dH", None)
     dH_si = to_si(dH, "molar_energy", t.key("dH")) if dH is not None else None
-
-    reverse_orders, equilibrium = (), None
-    if law == "reversible":
-        reverse_orders = _orders(t, "reverse_orders", dict(eq.products), symbols)
-        dn = sum(n for _, n in reverse_orders) - total
-        K = t.take("K", what="the equilibrium constant K_c at T_ref")
-        K_si = rate_constant_to_si(K, dn, t.key("K"), per="none")
-        if K_si <= 0:
-            raise StudyError(t.key("K"), f"a positive equilibrium constant, got {K!r}")
-        equilibrium = VantHoff(math.log(K_si), T_ref_si, dH_si or 0.0)
-    elif t.has("reverse_orders") or t.has("K"):
-        bad = "reverse_orders" if t.has("reverse_orders") else "K"
-        raise StudyError(t.key(bad), "only for law = 'reversible'")
-
-    adsorption, power = (), 1.0
-    if law == "adsorption":
-        ads = t.table("adsorption", what="a table of adsorption constants, e.g. { A = { K = '0.5 L/mol' } }")
-        terms = []
-        for s, body in ads.data.items():
-            akey = ads.key(s)
-            if s not in symbols:
-                raise StudyError(akey, f"a species of the network, got {s!r}")
-            at = Table(body, akey)
-            K = rate_constant_to_si(at.take("K", what="an adsorption constant such as '0.5 L/mol'"), -1.0, at.key("K"), per="none")
-            if K <= 0:
-                raise StudyError(at.key("K"), "a positive adsorption constant")
-            dHa = at.take("dH", None)
-            dHa = to_si(dHa, "molar_energy", at.key("dH")) if dHa is not None else 0.0
-            at.close(("K", "dH"))
-            terms.append((s, VantHoff(math.log(K), T_ref_si, dHa)))
-        ads.seen.update(ads.data)
-        if not terms:
-            raise StudyError(t.key("adsorption"), "at least one adsorbing species")
-        adsorption = tuple(terms)
-        power = number(t.take("denominator_power", 1.0), t.key("denominator_power"), low=0.0)
-    elif t.has("adsorption") or t.has("denominator_power"):
-        bad = "adsorption" if t.has("adsorption") else "denominator_power"
-        raise StudyError(t.key(bad), "only for law = 'adsorption'")
+    ctx = LawContext(eq.reactants, eq.products, orders, total, T_ref_si, frozenset(symbols),
+                     lambda table, key, default: _orders(table, key, default, symbols))
+    law = law_cls.read(t, ctx)
     t.take("id"), t.take("label", "")
     t.close(_REACTION_KEYS)
-    return Reaction(id=raw.id, equation=eq_text, reactants=eq.reactants, products=eq.products, law=law,
-                    orders=orders, rate=rate, reverse_orders=reverse_orders, equilibrium=equilibrium,
-                    adsorption=adsorption, denominator_power=power, dH=dH_si)
+    return Reaction(id=raw.id, equation=eq_text, reactants=eq.reactants, products=eq.products, orders=orders,
+                    k=rate, law=law, dH=dH_si)
 
 
 def _orders(t: Table, name: str, default: dict[str, float], symbols: set[str]) -> tuple[tuple[str, float], ...]:

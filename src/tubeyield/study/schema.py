@@ -7,9 +7,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field, replace
 
+from tubeyield.study.kinetics import Arrhenius, concentration_product
+from tubeyield.study.laws import PowerLaw, RateLaw
 from tubeyield.study.metric import Limit, Metric
-
-GAS_CONSTANT = 8.314462618  # J/(mol K), CODATA 2018 exact value of R
 
 
 @dataclass(frozen=True)
@@ -22,49 +22,28 @@ class Species:
 
 
 @dataclass(frozen=True)
-class Arrhenius:
-    """k(T) = k_ref exp(-Ea/R (1/T - 1/T_ref)), stored as ln k_ref so rate constants over many decades stay exact.
-
-    The reference-temperature form decouples k_ref and Ea in fits and optimizers (common practice; see e.g.
-    Schwaab and Pinto, Chem. Eng. Sci. 62 (2007) 2750, on reparameterizing the Arrhenius equation).
-    """
-    ln_k_ref: float   # natural log of the SI value at T_ref
-    T_ref: float      # K
-    Ea: float         # J/mol
-
-    def ln_value(self, T, mx):
-        return self.ln_k_ref - self.Ea / GAS_CONSTANT * (1.0 / T - 1.0 / self.T_ref)
-
-
-@dataclass(frozen=True)
-class VantHoff:
-    """K(T) = K_ref exp(-dH/R (1/T - 1/T_ref)): equilibrium or adsorption constant (van 't Hoff equation)."""
-    ln_K_ref: float
-    T_ref: float
-    dH: float
-
-    def ln_value(self, T, mx):
-        return self.ln_K_ref - self.dH / GAS_CONSTANT * (1.0 / T - 1.0 / self.T_ref)
-
-
-@dataclass(frozen=True)
 class Reaction:
     id: str
     equation: str
     reactants: tuple[tuple[str, float], ...]
     products: tuple[tuple[str, float], ...]
-    law: str                                   # power | reversible | adsorption
     orders: tuple[tuple[str, float], ...]      # forward orders
-    rate: Arrhenius                            # forward rate constant
-    reverse_orders: tuple[tuple[str, float], ...] = ()
-    equilibrium: VantHoff | None = None        # law = reversible: concentration-based K_c
-    adsorption: tuple[tuple[str, VantHoff], ...] = ()   # law = adsorption: K_i in 1/concentration
-    denominator_power: float = 1.0
+    k: Arrhenius                               # forward rate constant k(T)
+    law: RateLaw = PowerLaw()                  # the rate law (study/laws.py): its own keys and constants
     dH: float | None = None                    # heat of reaction at T_ref, J per mol of reaction as written
 
     @property
     def reversible(self) -> bool:
-        return self.law == "reversible"
+        return self.law.reversible
+
+    @property
+    def reverse_orders(self) -> tuple:
+        return self.law.reverse_orders
+
+    @property
+    def k_power(self) -> float:
+        """The concentration power p of k's unit, concentration^p / time (from the law and the forward orders)."""
+        return self.law.k_power(sum(n for _, n in self.orders))
 
     def stoichiometry(self) -> dict[str, float]:
         """Net coefficients: negative for consumed, positive for formed."""
@@ -76,59 +55,16 @@ class Reaction:
         return net
 
     def rate_expression(self, conc: dict, T, mx):
-        """Rate of reaction (mol/(m^3 s)) from concentrations (mol/m^3) and T (K).
-
-        `mx` is a math namespace with `exp` (numpy or pyomo.environ): the same code serves the Pyomo model and the
-        scipy reference simulation.
-        - power:      r = k(T) prod c_i^n_i
-        - reversible: r = k(T) (prod_reactants c^n - prod_products c^m / K_c(T))
-        - adsorption: r = k(T) prod c_i^n_i / (1 + sum K_i(T) c_i)^p   (Langmuir-Hinshelwood-Hougen-Watson form;
-                      Froment, Bischoff and De Wilde, Chemical Reactor Analysis and Design, 3rd ed. 2011, ch. 2)
-        """
-        k = mx.exp(self.rate.ln_value(T, mx))
-        forward = _product(conc, self.orders)
-        if self.law == "reversible":
-            K = mx.exp(self.equilibrium.ln_value(T, mx))
-            return k * (forward - _product(conc, self.reverse_orders) / K)
-        if self.law == "adsorption":
-            denominator = 1.0
-            for s, ads in self.adsorption:
-                denominator = denominator + mx.exp(ads.ln_value(T, mx)) * conc[s]
-            return k * forward / denominator ** self.denominator_power
-        return k * forward
+        """Rate of reaction (mol/(m^3 s)) from concentrations (mol/m^3) and T (K): the law's rate of k(T) and the
+        forward concentration product. `mx` is a math namespace with `exp` (numpy or pyomo.environ): the same code
+        serves the Pyomo model and the scipy reference simulation."""
+        k = mx.exp(self.k.ln_value(T, mx))
+        return self.law.rate(k, concentration_product(conc, self.orders), conc, T, mx, self.dH)
 
     def heat_of_reaction(self, T, heat_capacity_change: float):
         """dH(T) = dH(T_ref) + dCp (T - T_ref), with dCp = sum nu_i Cp_i constant (Kirchhoff's law)."""
         dH = 0.0 if self.dH is None else self.dH
-        return dH + heat_capacity_change * (T - self.rate.T_ref)
-
-
-# Orders between 0 and 1 make c^n infinitely steep at c = 0 (the solver then evaluates 0 * inf = NaN). Such a factor is
-# written c (c + delta)^(n - 1): exactly 0 at c = 0, smooth, with slope delta^(n - 1) there, and within a relative
-# (1 - n) delta / c of c^n for c >> delta (so below 1e-6 relative for concentrations above 1e-3 mol/m^3). A
-# regularization of this kind is common practice for fractional-order kinetics in optimization models; the model and
-# the reference simulation use the same form, and tests bound its effect against the exact power law.
-FRACTIONAL_ORDER_DELTA = 1e-9     # mol/m^3
-
-
-def power_factor(c, n: float):
-    """c^n for the rate laws: exact for n = 0, 1 and n >= 1, regularized for 0 < n < 1 (see FRACTIONAL_ORDER_DELTA)."""
-    if n == 0:
-        return 1.0
-    if n == 1:
-        return c
-    if n < 1:
-        return c * (c + FRACTIONAL_ORDER_DELTA) ** (n - 1.0)
-    return c ** n
-
-
-def _product(conc: dict, orders) -> object:
-    value = 1.0
-    for s, n in orders:
-        if n == 0:
-            continue
-        value = value * power_factor(conc[s], n)
-    return value
+        return dH + heat_capacity_change * (T - self.k.T_ref)
 
 
 @dataclass(frozen=True)

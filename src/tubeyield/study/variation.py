@@ -5,6 +5,8 @@ Paths:
   reaction.<id>.k_factor multiplier on k (catalyst activity); reaction.*.k_factor scales every reaction
   reaction.<id>.Ea       activation energy (k at T_ref kept)
   reaction.<id>.dH       heat of reaction
+  reaction.<id>.<law>    a constant of the reaction's rate law (study/laws.py: K for reversible, K.<s> and dH.<s>
+                         for the adsorption laws)
   feed.conc.<species>    inlet concentration (liquid)
   feed.flow              volumetric feed flow
   feed.T                 feed temperature
@@ -26,20 +28,24 @@ def _path_kind(path: str, key: str, study: Study):
     """(quantity kind, concentration power for rate constants) of a path; a StudyError if the path is unknown."""
     parts = path.split(".")
     head = parts[0]
-    if head == "reaction" and len(parts) == 3:
-        rid, attr = parts[1], parts[2]
+    if head == "reaction" and len(parts) >= 3:
+        rid, attr = parts[1], ".".join(parts[2:])
         if rid != "*" and rid not in {r.id for r in study.reactions}:
             raise StudyError(key, f"a reaction id after 'reaction.', got {rid!r} "
                                   f"(reactions: {', '.join(r.id for r in study.reactions)})")
         if rid == "*" and attr != "k_factor":
             raise StudyError(key, "'reaction.*' only with k_factor (a common multiplier on every rate constant)")
         if attr == "k":
-            order = sum(n for _, n in study.reaction(rid).orders)
-            return "rate", 1.0 - order
+            return "rate", study.reaction(rid).k_power
         kinds = {"k_factor": "dimensionless", "Ea": "molar_energy", "dH": "molar_energy"}
         if attr in kinds:
             return kinds[attr], None
-        raise StudyError(key, f"one of k, k_factor, Ea, dH after 'reaction.{rid}.', got {attr!r}")
+        law_paths = study.reaction(rid).law.paths()
+        if attr in law_paths:
+            lp = law_paths[attr]
+            return lp.kind, lp.power
+        raise StudyError(key, f"one of {', '.join(['k', 'k_factor', 'Ea', 'dH'] + list(law_paths))} after "
+                              f"'reaction.{rid}.', got {attr!r}")
     if head == "feed" and len(parts) == 3 and parts[1] == "conc":
         if study.feed.phase != "liquid":
             raise StudyError(key, "feed.conc.<species> only for a liquid feed")
@@ -68,6 +74,8 @@ def _path_kind(path: str, key: str, study: Study):
 def _value(v, kind, power, key):
     if kind == "rate":
         return rate_constant_to_si(v, power, key)
+    if kind == "constant":                     # concentration^power, no time (equilibrium, adsorption constants)
+        return rate_constant_to_si(v, power, key, per="none")
     return to_si(v, kind, key)
 
 
