@@ -96,7 +96,7 @@ def window(study, *, at: Result | dict | None = None, workers: int | None = None
     if at is None:
         at = optimize(st, relax=False)
     if isinstance(at, Result):
-        base, solved = at.decisions_si, at.status in _status.SOLVED
+        base, solved = at.point(), at.status in _status.SOLVED
     else:
         base, solved = dict(at), True
     if set(base) != {d.name for d in st.decisions}:

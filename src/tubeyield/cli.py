@@ -263,6 +263,7 @@ def _window(args) -> int:
     from pathlib import Path
 
     from tubeyield.jobs.optimize import optimize
+    from tubeyield.jobs.result import point_of
     from tubeyield.jobs.window import optimum_marker, window
     from tubeyield.report.files import save_inputs, write_json
 
@@ -270,7 +271,7 @@ def _window(args) -> int:
     if args.at:
         try:
             saved = _json.loads(Path(args.at).read_text(encoding="utf-8"))
-            base = saved["decisions_si"]
+            base = point_of(saved["decisions_si"], saved["decisions"])
             status = saved["status"]
         except (OSError, ValueError, KeyError) as exc:
             raise StudyError(args.at, f"an optimum.json written by 'tubeyield optimize --save' ({exc})") from None
@@ -278,7 +279,7 @@ def _window(args) -> int:
             raise StudyError(args.at, "an optimum of this study (its decisions differ)")
     else:
         res = optimize(study)
-        base, status = res.decisions_si, res.status
+        base, status = res.point(), res.status
     optimum = optimum_marker(study, base) if status in SOLVED else None
     _at_least(args.workers, "--workers", 1, "a number of processes")
     result = window(study, base, workers=args.workers, optimum=optimum)

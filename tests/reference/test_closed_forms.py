@@ -253,3 +253,39 @@ maximize = "outlet:B"
     assert out["B"] == pytest.approx(0.132, rel=5e-3)
     assert out["Y"] == pytest.approx(0.0786, rel=5e-3)
     assert res.volume_m3 * 1000 == pytest.approx(1566, rel=2e-3)   # V = 1566 dm3, published (from memory)
+
+
+def _closed_form_conversion(kind: str, k: float, tau: float, tanks: int) -> float:
+    # [L] ch. 5 and 6, first order at constant temperature: plug C_A/C_A0 = exp(-k tau); one mixed tank
+    # 1/(1 + k tau); N equal tanks (1 + k tau/N)^-N
+    if kind == "plug":
+        return 1.0 - math.exp(-k * tau)
+    n = tanks if kind == "stirred-series" else 1
+    return 1.0 - (1.0 + k * tau / n) ** -n
+
+
+def _every_kind_and_mode():
+    from tubeyield.study.modes import HEAT_MODES, REACTOR_KINDS
+    return [(k, h) for k, kind in REACTOR_KINDS.items() for h, mode in HEAT_MODES.items()
+            if kind.axial or not mode.axial_only]
+
+
+@pytest.mark.parametrize("kind,heat", _every_kind_and_mode())
+def test_first_order_closed_form_in_every_reactor_kind_and_heat_mode(kind, heat):
+    """Every registered kind and heat mode, run where the closed form applies: a reaction with no heat effect
+    (dH = 0) at 300 K everywhere (fixed zones or profile at 300 K; inlet and coolant at 300 K)."""
+    from tubeyield.study.modes import HEAT_MODES
+    mode = HEAT_MODES[heat]
+    k, tau, tanks = 0.4, 3.0, 4
+    text = first_order(kind, k, tau, f'heat = "{heat}"' + (f"\ntanks = {tanks}" if kind == "stirred-series" else "")
+                       + ('\nU = "500 W/(m^2*K)"\ndiameter = "20 mm"' if mode.wall else ""))
+    text = text.replace('[species.A]\n[species.B]', '[species.A]\nCp = "100 J/(mol*K)"\n[species.B]\nCp = "100 J/(mol*K)"')
+    text = text.replace('k = "0.4 1/s"', 'k = "0.4 1/s"\ndH = "0 kJ/mol"')
+    temps = {"T": 'T = "300 K"', "T_in": 'T_in = "300 K"', "T_cool": 'T_cool = "300 K"'}
+    text = text.replace('T = "300 K"\n', "\n".join(temps[d] for d in mode.decisions) + "\n")
+    study = study_from_toml(text)
+    expected = _closed_form_conversion(kind, k, tau, tanks)
+    res = optimize(study, starts=1)
+    assert res.status == "optimal", res.message
+    assert res.metrics["conversion:A"]["value"] == pytest.approx(expected, rel=REL)
+    assert evaluate(study, res.point()).metrics["conversion:A"]["value"] == pytest.approx(expected, rel=REL)

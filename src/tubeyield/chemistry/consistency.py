@@ -29,7 +29,7 @@ from fractions import Fraction
 
 import numpy as np
 
-from tubeyield.chemistry.formula import parse_formula
+from tubeyield.study.formula import parse_formula
 from tubeyield.chemistry.network import Network, reactions_that_cannot_start
 from tubeyield.study.schema import Study
 

@@ -31,7 +31,7 @@ from tubeyield import status as st
 from tubeyield.jobs.optimize import SAME_OPTIMUM, optimize
 from tubeyield.jobs.problem import prepare
 from tubeyield.jobs.refine import verify_and_refine
-from tubeyield.jobs.result import Result, _finite
+from tubeyield.jobs.result import Result, finite_json
 from tubeyield.reactor.metrics import all_metrics, metric_display
 from tubeyield.reactor.verify import compare, reference
 from tubeyield.solve import OK_CONDITIONS, make_solver
@@ -61,7 +61,7 @@ class FrontResult:
         return [p for p in self.points if p["status"] in st.SOLVED and not p["dominated"]]
 
     def to_dict(self) -> dict:
-        return _finite({"tool": f"tubeyield {__version__}", "study": self.study, "x": self.x, "y": self.y,
+        return finite_json({"tool": f"tubeyield {__version__}", "study": self.study, "x": self.x, "y": self.y,
                         "x_sense": self.x_sense, "y_sense": self.y_sense, "status": self.status,
                         "message": self.message, "knee": self.knee, "points": self.points, "ends": self.ends,
                         "timing": self.timing})

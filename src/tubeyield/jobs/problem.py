@@ -50,7 +50,7 @@ def starting_mesh(study: Study, simulations: list):
     None: keep the study's mesh."""
     from tubeyield.reactor.mesh import adapted_edges, breakpoints
     from tubeyield.reactor.simulate import SimulationFailed, simulate
-    if study.reactor.kind != "plug" or study.reactor.heat not in ("zones", "free"):
+    if not study.reactor.form.axial or not study.reactor.mode.profile:
         return None
     sims = [s for s in simulations if s is not None]
     corner = {d.name: d.high if d.si_unit in ("s", "K") else 0.5 * (d.low + d.high) for d in study.decisions}
@@ -58,7 +58,7 @@ def starting_mesh(study: Study, simulations: list):
         sims.append(simulate(study, corner, rtol=1e-8))
     except SimulationFailed:
         pass
-    zones = study.reactor.zones if study.reactor.heat == "zones" else 1
+    zones = study.reactor.zones
     if not sims:
         return None
     return adapted_edges(sims, study.reactor.elements, study.reactor.points, fixed=breakpoints(zones),

@@ -35,7 +35,7 @@ MAX_RUNG_ZONES = 16        # a free profile's ladder stops here (or at half the 
 
 def is_profile_study(study: Study) -> bool:
     temps = temperature_decisions(study)
-    return study.reactor.heat in ("zones", "free") and bool(temps) and not all(d.fixed for d in temps)
+    return study.reactor.mode.profile and bool(temps) and not all(d.fixed for d in temps)
 
 
 def temperature_decisions(study: Study) -> list[Decision]:

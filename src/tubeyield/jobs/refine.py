@@ -90,7 +90,7 @@ def _refined(study: Study, model: ReactorModel, sim, n_new: int, solver, options
     """The problem on an equidistributed mesh of n_new elements, solved from `sim`; None when it does not converge."""
     floor = FLOOR_SHARE * sum(abs(v) for v in sim.u_in.values())
     errors = model.element_errors(sim, floor)
-    zones = study.reactor.zones if study.reactor.heat == "zones" else 1
+    zones = study.reactor.zones
     edges = equidistribute(model.edges, errors, n_new, study.reactor.points, fixed=breakpoints(zones))
     decisions = model.decision_values()
     T_fun = model.temperature_function()

@@ -30,13 +30,18 @@ class Result:
     profile: object = field(default=None, repr=False)     # pandas DataFrame (CSV on disk)
 
     def to_dict(self) -> dict:
-        return _finite({
+        return finite_json({
             "tool": f"tubeyield {__version__}", "status": self.status, "study": self.study, "message": self.message,
             "goal": self.goal, "decisions": self.decisions, "metrics": self.metrics, "outlet": self.outlet,
             "volume_m3": self.volume_m3, "limits": self.limits, "bounds": self.bounds, "conflicts": self.conflicts,
             "check": self.check.to_dict() if self.check else None, "starts": self.starts, "timing": self.timing,
             "warnings": self.warnings, "decisions_si": self.decisions_si,
         })
+
+    def point(self) -> dict:
+        """The operating point to simulate again (SI by decision name): profile decisions as piecewise-linear
+        functions of z through their values at their positions (a list alone does not say where its values sit)."""
+        return point_of(self.decisions_si, self.decisions)
 
     def to_frame(self):
         """One row per number of the result (pandas): decisions, goal, metrics, limits, outlet concentrations, with
@@ -58,12 +63,26 @@ class Result:
         return pd.DataFrame(rows)
 
 
-def _finite(obj):
+def point_of(decisions_si: dict, decisions: dict) -> dict:
+    """`decisions_si` with each profile (a list of values) turned into a PiecewiseLinear over the positions `z`
+    recorded in `decisions` (as a Result or its saved JSON holds them)."""
+    from tubeyield.reactor.simulate import PiecewiseLinear
+    out = dict(decisions_si)
+    for name, v in decisions_si.items():
+        if isinstance(v, list):
+            z = (decisions.get(name) or {}).get("z")
+            if not z or len(z) != len(v):
+                raise ValueError(f"the profile {name!r} has no positions for its {len(v)} values")
+            out[name] = PiecewiseLinear(list(z), list(v))
+    return out
+
+
+def finite_json(obj):
     """JSON has no NaN or infinity: write them as null."""
     if isinstance(obj, float):
         return obj if math.isfinite(obj) else None
     if isinstance(obj, dict):
-        return {k: _finite(v) for k, v in obj.items()}
+        return {k: finite_json(v) for k, v in obj.items()}
     if isinstance(obj, (list, tuple)):
-        return [_finite(v) for v in obj]
+        return [finite_json(v) for v in obj]
     return obj

@@ -127,7 +127,7 @@ def _back_off(study: Study, nominal_results, scenario_values, pool, target: floa
             if r.status != "optimal":
                 cache[b] = (None, None, 0.0)
             else:
-                res = _evaluate_points(study, [r.decisions_si], scenario_values, pool)[0]
+                res = _evaluate_points(study, [r.point()], scenario_values, pool)[0]
                 cache[b] = (dict(r.decisions_si), res, float(np.mean([x[1] for x in res])))
         return cache[b]
 

@@ -20,7 +20,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from tubeyield import __version__
-from tubeyield.jobs.result import _finite
+from tubeyield.jobs.result import finite_json
 from tubeyield.errors import SimulationFailed
 from tubeyield.reactor.metrics import metric_display
 from tubeyield.reactor.simulate import simulate
@@ -51,7 +51,7 @@ class WindowResult:
     units: dict = field(default_factory=dict)   # unit of each fixed decision and of the goal ('' for fractions)
 
     def to_dict(self) -> dict:
-        return _finite({"tool": f"tubeyield {__version__}", "study": self.study, "x": self.x, "y": self.y,
+        return finite_json({"tool": f"tubeyield {__version__}", "study": self.study, "x": self.x, "y": self.y,
                         "x_unit": self.x_unit, "y_unit": self.y_unit, "x_values": self.x_values.tolist(),
                         "y_values": self.y_values.tolist(), "maps": {k: v.tolist() for k, v in self.maps.items()},
                         "holds": {k: v.tolist() for k, v in self.holds.items()}, "window": self.window.tolist(),
@@ -171,7 +171,7 @@ def _user(values: np.ndarray, d) -> np.ndarray:
 
 
 def _tau_axis_shortcut(study: Study, spec) -> bool:
-    return (study.reactor.kind == "plug" and study.reactor.heat in ("isothermal", "adiabatic", "cooled")
+    return (study.reactor.form.axial and not study.reactor.mode.profile
             and "tau" in (spec.x, spec.y))
 
 
@@ -232,8 +232,6 @@ def _all_cells(study: Study, base: dict, xs, ys, workers):
         for x in xs:
             p = dict(base)
             p[spec.x], p[spec.y] = float(x), float(y)
-            if study.reactor.heat == "free" and spec.x != "T" and spec.y != "T" and isinstance(p.get("T"), list):
-                p["T"] = float(np.mean(p["T"]))      # a profile decision held at its mean in the map
             jobs.append((study, p))
     workers = workers or os.cpu_count() or 1
     if workers > 1 and len(jobs) > 50:

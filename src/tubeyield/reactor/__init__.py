@@ -31,12 +31,11 @@ def build(study: Study, mesh=None, state_scale: dict | None = None) -> ReactorMo
     """The collocation (plug) or algebraic (stirred) model of `study`, with decisions at their mid-range values.
     `mesh` is a number of elements or a list of element edges on [0, 1] (plug flow; default the study's
     elements); `state_scale` divides each species' scaled flow (see `state_scales`); default 1."""
+    import importlib
+    module, _, cls = study.reactor.form.model.partition(":")     # the kind's model class (study/modes.py)
+    model_class = getattr(importlib.import_module(module), cls)
     with paused_gc():
-        if study.reactor.kind == "plug":
-            from tubeyield.reactor.plug import PlugModel
-            return PlugModel(study, mesh, state_scale)
-        from tubeyield.reactor.stirred import StirredModel
-        return StirredModel(study, mesh, state_scale)
+        return model_class(study, mesh, state_scale)
 
 
 __all__ = ["ReactorModel", "build", "paused_gc", "state_scales"]

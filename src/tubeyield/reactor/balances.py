@@ -77,7 +77,7 @@ def concentrations(study: Study, u: dict, T, c_s, par) -> dict:
 
 def wall_term(study: Study, par, T, T_cool):
     """U a (T_cool - T), W/m^3, with a = 4/D; zero unless heat = 'cooled'."""
-    if study.reactor.heat != "cooled":
+    if not study.reactor.mode.wall:
         return 0.0
     return par["U"] * 4.0 / study.reactor.diameter * (T_cool - T)
 

@@ -157,7 +157,7 @@ def simulation_errors(sim, edges, points: int, scales: np.ndarray) -> np.ndarray
     z = (edges[:-1, None] + np.diff(edges)[:, None] * tau[None, :]).ravel()
     states = sim.states_at(z)
     columns = [states.flows[s] for s in sim.study.symbols]
-    if sim.study.reactor.heat in ("adiabatic", "cooled"):
+    if sim.study.reactor.mode.energy_balance:
         columns.append(states.T)
     values = np.stack(columns, axis=1).reshape(len(edges) - 1, points + 1, len(columns))
     return element_errors(edges, values, sim.rhs, scales, points)
@@ -181,7 +181,7 @@ def adapted_edges(sims, n: int, points: int, fixed=(0.0, 1.0), grading: float = 
         total = sum(abs(v) for v in sim.u_in.values()) or 1.0
         sizes = sim.typical_sizes()
         scales.append(np.array([max(sizes[s], floor_share * total) for s in sim.study.symbols]
-                               + ([max(sim.T_out, 1.0)] if sim.study.reactor.heat in ("adiabatic", "cooled") else [])))
+                               + ([max(sim.T_out, 1.0)] if sim.study.reactor.mode.energy_balance else [])))
     for r in range(rounds):
         h = np.diff(edges)
         errors = [simulation_errors(sim, edges, points, sc) for sim, sc in zip(sims, scales)]

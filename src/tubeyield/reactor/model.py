@@ -161,10 +161,10 @@ class ReactorModel:
             m.Tz = pyo.Var(pyo.RangeSet(1, st.reactor.zones))
             for k in range(1, st.reactor.zones + 1):
                 scalar(f"T.{k}", m.Tz[k], self.T_scale)
-        elif heat in ("adiabatic", "cooled"):
+        elif st.reactor.mode.energy_balance:
             m.T_in = pyo.Var()
             scalar("T_in", m.T_in, self.T_scale)
-            if heat == "cooled":
+            if st.reactor.mode.wall:
                 m.T_cool = pyo.Var()
                 scalar("T_cool", m.T_cool, self.T_scale)
         m.ratio = pyo.Var(self.ratio_species)
@@ -177,7 +177,7 @@ class ReactorModel:
             return self.T_scale * self.m.T
         if heat == "zones":
             return self.T_scale * self.m.Tz[1]
-        if heat in ("adiabatic", "cooled"):
+        if self.study.reactor.mode.energy_balance:
             return self.T_scale * self.m.T_in
         return None  # free: a gas feed must name its temperature (checked by the loader)
 
@@ -185,7 +185,7 @@ class ReactorModel:
         return self.tau_scale * self.m.tau
 
     def T_cool_expr(self):
-        return self.T_scale * self.m.T_cool if self.study.reactor.heat == "cooled" else None
+        return self.T_scale * self.m.T_cool if self.study.reactor.mode.wall else None
 
     def profile_positions(self) -> list:
         """Positions z of a profile decision's values (the element edges of a free temperature profile)."""
@@ -333,6 +333,10 @@ class ReactorModel:
 
     def initialize(self, sim) -> None:
         raise NotImplementedError
+
+    def reference_guess(self):
+        """What the reference simulation starts from (None: the inlet; tank models give their solution)."""
+        return None
 
     def profile(self):
         raise NotImplementedError

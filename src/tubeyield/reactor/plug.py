@@ -35,7 +35,7 @@ class PlugModel(ReactorModel):
         rx = st.reactor
         heat = rx.heat
         symbols = st.symbols
-        zones = rx.zones if heat == "zones" else 1
+        zones = rx.zones
         if isinstance(self.mesh, int):
             self.edges = initial_edges(self.mesh, rx.grading, zones)
         else:
@@ -51,7 +51,7 @@ class PlugModel(ReactorModel):
         m.u = pyo.Var(m.S, m.z, bounds=(0.0, None),
                       initialize=lambda m, s, z: pyo.value(self.u0[s]) / sc[s])
         m.du = dae.DerivativeVar(m.u, wrt=m.z)
-        energy = heat in ("adiabatic", "cooled")
+        energy = st.reactor.mode.energy_balance
         if energy:
             m.theta = pyo.Var(m.z, bounds=T_STATE_BOUNDS, initialize=pyo.value(m.T_in))
             m.dtheta = dae.DerivativeVar(m.theta, wrt=m.z)
@@ -179,7 +179,7 @@ class PlugModel(ReactorModel):
         from tubeyield.reactor.mesh import element_errors
         m, st = self.m, self.study
         K = st.reactor.points
-        energy = st.reactor.heat in ("adiabatic", "cooled")
+        energy = st.reactor.mode.energy_balance
         rows = []
         for z in self.points:
             row = [pyo.value(m.u[s, z]) * self.state_scale[s] for s in st.symbols]
@@ -203,7 +203,7 @@ class PlugModel(ReactorModel):
             for zi, v, dv in zip(self.points, states.flows[s], derivs.flows[s]):
                 m.u[s, zi].set_value(max(float(v), 0.0) / self.state_scale[s], skip_validation=True)
                 m.du[s, zi].set_value(float(dv) / self.state_scale[s], skip_validation=True)
-        if self.study.reactor.heat in ("adiabatic", "cooled"):
+        if self.study.reactor.mode.energy_balance:
             for zi, v, dv in zip(self.points, states.T, derivs.T):
                 m.theta[zi].set_value(float(v) / self.T_scale, skip_validation=True)
                 m.dtheta[zi].set_value(float(dv) / self.T_scale, skip_validation=True)

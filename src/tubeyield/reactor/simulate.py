@@ -173,7 +173,7 @@ class Simulation:
         """d(state)/dz at positions z, from the simulation's own right-hand side (to start the collocation model)."""
         states = self.states_at(z)
         symbols = self.study.symbols
-        energy = self.study.reactor.heat in ("adiabatic", "cooled")
+        energy = self.study.reactor.mode.energy_balance
         flows = {s: np.empty(len(z)) for s in symbols}
         dT = np.zeros(len(z))
         for i, zi in enumerate(z):
@@ -214,7 +214,11 @@ def temperature_profile(study: Study, decisions: dict):
         n = study.reactor.zones
         return PiecewiseConstant([k / n for k in range(n)] + [1.0], [decisions[f"T.{k}"] for k in range(1, n + 1)])
     if heat == "free":
-        return decisions["T"]
+        T = decisions["T"]
+        if isinstance(T, (list, tuple)):
+            raise SimulationFailed("a free temperature profile needs its positions: pass a PiecewiseLinear "
+                                   "(Result.point() gives one), not a bare list of values")
+        return T
     return None
 
 
@@ -235,7 +239,7 @@ def simulate(study: Study, decisions: dict, T_profile=None, guess: list | None =
     sim = Simulation(study, dict(decisions), u0, float(c_s), par)
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
         try:
-            if study.reactor.kind == "plug":
+            if study.reactor.form.axial:
                 _plug(sim, kin, T_fun, T_in, method, rtol)
             else:
                 _tanks(sim, kin, T_fun, T_in, guess)
@@ -251,7 +255,7 @@ def _plug(sim: Simulation, kin: Kinetics, T_fun, T_in, method: str, rtol: float)
     st = sim.study
     symbols = st.symbols
     n = len(symbols)
-    energy = st.reactor.heat in ("adiabatic", "cooled")
+    energy = st.reactor.mode.energy_balance
     tau = sim.decisions["tau"]
     T_cool = sim.decisions.get("T_cool")
 
@@ -336,8 +340,8 @@ def _tanks(sim: Simulation, kin: Kinetics, T_fun, T_in, guess) -> None:
     st = sim.study
     symbols = st.symbols
     n = len(symbols)
-    energy = st.reactor.heat in ("adiabatic", "cooled")
-    N = st.reactor.tanks if st.reactor.kind == "stirred-series" else 1
+    energy = st.reactor.mode.energy_balance
+    N = st.reactor.tanks
     tau_k = sim.decisions["tau"] / N
     T_cool = sim.decisions.get("T_cool")
     prev = dict(sim.u_in)

@@ -22,7 +22,7 @@ class StirredModel(ReactorModel):
         m, st = self.m, self.study
         rx = st.reactor
         symbols = st.symbols
-        n = rx.tanks if rx.kind == "stirred-series" else 1
+        n = rx.tanks
         self.n_tanks = n
         m.K = pyo.RangeSet(1, n)
         m.S = pyo.Set(initialize=symbols, ordered=True)
@@ -30,7 +30,7 @@ class StirredModel(ReactorModel):
         sc = self.state_scale
         m.u = pyo.Var(m.S, m.K, bounds=(0.0, None),
                       initialize=lambda m, s, k: pyo.value(self.u0[s]) / sc[s])
-        energy = rx.heat in ("adiabatic", "cooled")
+        energy = rx.mode.energy_balance
         if energy:
             m.theta = pyo.Var(m.K, bounds=T_STATE_BOUNDS, initialize=pyo.value(m.T_in))
         tau_k = self.tau_expr() / n
@@ -79,6 +79,11 @@ class StirredModel(ReactorModel):
     def temperature_function(self):
         return None
 
+    def reference_guess(self) -> list:
+        """The tanks' states at the model's solution: where the reference solve starts (a tank can have several
+        steady states, and the check is of this one)."""
+        return self.tank_states()
+
     def tank_states(self) -> list:
         from tubeyield.reactor.simulate import States
         return [States({s: float(pyo.value(self.m.u[s, k])) * self.state_scale[s] for s in self.study.symbols},
@@ -90,7 +95,7 @@ class StirredModel(ReactorModel):
             for s in self.study.symbols:
                 m.u[s, k].set_value(max(float(sim.tanks[k - 1].flows[s]), 0.0) / self.state_scale[s],
                                     skip_validation=True)
-            if self.study.reactor.heat in ("adiabatic", "cooled"):
+            if self.study.reactor.mode.energy_balance:
                 m.theta[k].set_value(sim.tanks[k - 1].T / self.T_scale, skip_validation=True)
 
     def profile(self):

@@ -39,8 +39,8 @@ class Check:
 
 
 def reference(model: ReactorModel, method: str = "LSODA") -> Simulation:
-    guess = model.tank_states() if model.kind == "stirred" else None
-    return simulate(model.study, model.decision_values(), T_profile=model.temperature_function(), guess=guess,
+    return simulate(model.study, model.decision_values(), T_profile=model.temperature_function(),
+                    guess=model.reference_guess(),
                     method=method)
 
 

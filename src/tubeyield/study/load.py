@@ -227,7 +227,7 @@ def check_damkohler(reactions, feed: Feed, decisions, goal) -> None:
 
 
 def _check_heat_needs(reactor: Reactor, reactions, species: dict[str, Species], feed: Feed, decisions) -> None:
-    if reactor.heat in ("adiabatic", "cooled"):
+    if reactor.mode.energy_balance:
         for r in reactions:
             if r.dH is None:
                 raise StudyError(f"reaction.{r.id}.dH", f"the heat of reaction for heat = '{reactor.heat}'")

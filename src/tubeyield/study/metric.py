@@ -20,7 +20,7 @@ from dataclasses import dataclass
 from tubeyield.errors import StudyError
 from tubeyield.study.units import to_si, unit_text
 
-KINDS = ("conversion", "yield", "selectivity", "outlet", "productivity", "margin")
+METRIC_KINDS = ("conversion", "yield", "selectivity", "outlet", "productivity", "margin")
 # SI unit of each metric kind, and the kind of quantity a limit bound must have.
 SI_UNIT = {"conversion": "", "yield": "", "selectivity": "", "outlet": "mol/m^3", "productivity": "mol/(m^3*s)",
            "margin": "", "T": "K"}
@@ -31,7 +31,7 @@ _LIMIT = re.compile(r"^\s*([A-Za-z_][A-Za-z0-9_:]*)\s*(>=|<=)\s*(.+?)\s*$")
 
 @dataclass(frozen=True)
 class Metric:
-    kind: str               # one of KINDS
+    kind: str               # one of METRIC_KINDS
     species: str | None     # None for margin
 
     @property
@@ -64,9 +64,9 @@ def parse_metric(text, key: str, species: set[str]) -> Metric:
     if t == "margin":
         return Metric("margin", None)
     kind, sep, sp = t.partition(":")
-    if not sep or kind not in KINDS or kind == "margin":
+    if not sep or kind not in METRIC_KINDS or kind == "margin":
         raise StudyError(key, f"a metric of the form kind:species with kind one of "
-                              f"{', '.join(k for k in KINDS if k != 'margin')}, or 'margin'; got {text!r}")
+                              f"{', '.join(k for k in METRIC_KINDS if k != 'margin')}, or 'margin'; got {text!r}")
     if sp not in species:
         raise StudyError(key, f"a species of the network after '{kind}:', got {sp!r} (species: {', '.join(sorted(species))})")
     return Metric(kind, sp)

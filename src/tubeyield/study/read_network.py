@@ -7,6 +7,7 @@ import math
 
 from tubeyield.errors import StudyError
 from tubeyield.study.equation import SYMBOL, parse_equation
+from tubeyield.study.formula import parse_formula
 from tubeyield.study.kinetics import GAS_CONSTANT, Arrhenius
 from tubeyield.study.laws import LAW_KEYS, LAWS, LawContext
 from tubeyield.study.schema import Reaction, Species
@@ -24,7 +25,6 @@ def read_species(data: dict, path: str) -> list[Species]:
         label = t.take("label", "", types=str)
         formula = t.take("formula", None, types=str)
         if formula is not None:
-            from tubeyield.chemistry.formula import parse_formula
             parse_formula(formula, t.key("formula"))
         mm = t.take("molar_mass", None)
         mm = to_si(mm, "molar_mass", t.key("molar_mass")) if mm is not None else None

@@ -6,13 +6,12 @@ import math
 
 from tubeyield.errors import StudyError
 from tubeyield.study import caps
+from tubeyield.study.modes import HEAT_MODES, REACTOR_KINDS
 from tubeyield.study.schema import Decision, Feed, Reactor
 from tubeyield.study.toml import Table, number
 from tubeyield.study.units import to_si, unit_text
 
 PHASES = ("liquid", "gas")
-KINDS = ("plug", "stirred", "stirred-series")
-HEAT = ("isothermal", "zones", "free", "adiabatic", "cooled")
 
 
 def read_feed(t: Table, symbols: set[str]) -> Feed:
@@ -82,14 +81,15 @@ def read_feed(t: Table, symbols: set[str]) -> Feed:
 
 def read_reactor(t: Table) -> Reactor:
     kind = t.take("kind", "plug", types=str)
-    if kind not in KINDS:
-        raise StudyError(t.key("kind"), f"one of {', '.join(KINDS)}, got {kind!r}")
+    if kind not in REACTOR_KINDS:
+        raise StudyError(t.key("kind"), f"one of {', '.join(REACTOR_KINDS)}, got {kind!r}")
     heat = t.take("heat", "isothermal", types=str)
-    if heat not in HEAT:
-        raise StudyError(t.key("heat"), f"one of {', '.join(HEAT)}, got {heat!r}")
-    if kind != "plug" and heat in ("zones", "free"):
-        raise StudyError(t.key("heat"), f"'isothermal', 'adiabatic' or 'cooled' for a {kind} reactor; "
-                                        f"'{heat}' needs kind = 'plug'")
+    if heat not in HEAT_MODES:
+        raise StudyError(t.key("heat"), f"one of {', '.join(HEAT_MODES)}, got {heat!r}")
+    if not REACTOR_KINDS[kind].axial and HEAT_MODES[heat].axial_only:
+        allowed = [h for h, m in HEAT_MODES.items() if not m.axial_only]
+        raise StudyError(t.key("heat"), f"{', '.join(repr(h) for h in allowed)} for a {kind} reactor; "
+                                        f"'{heat}' needs a tube (kind = 'plug')")
     elements = int(number(t.take("elements", 40), t.key("elements"), low=1, integer=True))
     points = int(number(t.take("points", 3), t.key("points"), low=1, integer=True))
     if points > 10:
@@ -98,16 +98,16 @@ def read_reactor(t: Table) -> Reactor:
     zones = int(number(t.take("zones", 1 if heat != "zones" else 4), t.key("zones"), low=1, integer=True))
     if heat != "zones" and t.has("zones"):
         raise StudyError(t.key("zones"), "only for heat = 'zones'")
-    tanks = int(number(t.take("tanks", 1 if kind != "stirred-series" else 3), t.key("tanks"), low=1, integer=True))
+    tanks = int(number(t.take("tanks", 3 if REACTOR_KINDS[kind].tanks else 1), t.key("tanks"), low=1, integer=True))
     caps.at_most(zones, caps.MAX_ZONES, t.key("zones"), "a number of zones")
     caps.at_most(tanks, caps.MAX_TANKS, t.key("tanks"), "a number of tanks")
-    if kind != "stirred-series" and t.has("tanks"):
+    if not REACTOR_KINDS[kind].tanks and t.has("tanks"):
         raise StudyError(t.key("tanks"), "only for kind = 'stirred-series'")
     U = t.take("U", None)
     U = to_si(U, "heat_transfer", t.key("U")) if U is not None else None
     d = t.take("diameter", None)
     d = to_si(d, "length", t.key("diameter")) if d is not None else None
-    if heat == "cooled" and (U is None or d is None):
+    if HEAT_MODES[heat].wall and (U is None or d is None):
         missing = "U" if U is None else "diameter"
         raise StudyError(t.key(missing), "a wall heat-transfer coefficient U and a tube diameter for heat = 'cooled'")
     if d is not None and d <= 0:
@@ -155,7 +155,7 @@ def read_operate(t: Table, reactor: Reactor, feed: Feed, symbols: set[str]) -> l
         raise StudyError(t.key("tau"), "the residence time, a value '2 min' or a range ['10 s', '60 min']")
     out = [_decision(t.data["tau"], t.key("tau"), "tau", "time", "s")]
     heat = reactor.heat
-    needs_T = heat in ("isothermal", "zones", "free")
+    needs_T = "T" in reactor.mode.decisions
     if needs_T:
         if not t.has("T"):
             raise StudyError(t.key("T"), f"the reactor temperature (value or range) for heat = '{heat}'")
@@ -177,7 +177,7 @@ def read_operate(t: Table, reactor: Reactor, feed: Feed, symbols: set[str]) -> l
             out.append(Decision("T_in", feed.T, feed.T, "K", "K"))
         else:
             raise StudyError(t.key("T_in"), f"the inlet temperature (operate.T_in or feed.T) for heat = '{heat}'")
-        if heat == "cooled":
+        if reactor.mode.wall:
             if not t.has("T_cool"):
                 raise StudyError(t.key("T_cool"), "the coolant temperature for heat = 'cooled'")
             out.append(_decision(t.data["T_cool"], t.key("T_cool"), "T_cool", "temperature", "K"))

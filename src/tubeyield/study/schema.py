@@ -10,6 +10,7 @@ from dataclasses import dataclass, field, replace
 from tubeyield.study.kinetics import Arrhenius, concentration_product
 from tubeyield.study.laws import PowerLaw, RateLaw
 from tubeyield.study.metric import Limit, Metric
+from tubeyield.study.modes import HEAT_MODES, REACTOR_KINDS, HeatMode, ReactorKind
 
 
 @dataclass(frozen=True)
@@ -93,6 +94,16 @@ class Reactor:
     U: float | None = None        # wall heat-transfer coefficient, W/(m^2 K) (heat = cooled)
     diameter: float | None = None # tube diameter, m (heat = cooled: area per volume 4/d)
     grading: float = 1.0          # ratio of the last element's length to the first (1 = uniform mesh)
+
+    @property
+    def mode(self) -> HeatMode:
+        """What the heat mode is (study/modes.py): its decisions and the balances it adds."""
+        return HEAT_MODES[self.heat]
+
+    @property
+    def form(self) -> ReactorKind:
+        """What the reactor kind is (study/modes.py): axial or tanks, and its model class."""
+        return REACTOR_KINDS[self.kind]
 
 
 @dataclass(frozen=True)

@@ -21,7 +21,7 @@ ureg.define("pound_mole = 453.59237 * mole = lbmol = lb_mol")
 Quantity = ureg.Quantity
 
 # Expected kinds of quantity: SI unit the numerics use, and an example shown in error messages.
-KINDS: dict[str, tuple[str, str]] = {
+QUANTITY_KINDS: dict[str, tuple[str, str]] = {
     "time": ("s", "a time such as '90 s' or '5 min'"),
     "temperature": ("K", "a temperature such as '350 K' or '80 degC'"),
     "concentration": ("mol/m^3", "a concentration such as '1.0 mol/L'"),
@@ -88,7 +88,7 @@ def parse_quantity(value, key: str) -> "pint.Quantity":
 
 def to_si(value, kind: str, key: str) -> float:
     """Parse `value` and convert it to the SI unit of `kind`; a wrong dimension is a StudyError naming the key."""
-    si_unit, example = KINDS[kind]
+    si_unit, example = QUANTITY_KINDS[kind]
     q = parse_quantity(value, key)
     target = _unit(si_unit)
     if q.dimensionality != target.dimensionality:
