@@ -239,6 +239,7 @@ def _with_hot_spots(study: Study, limits: list, verified, tau: float) -> None:
         if h is None:
             continue
         entry["value"] = convert(h.value, "K", lim.unit) if lim.unit else h.value
+        entry["margin"] = entry["bound"] - entry["value"] if lim.sense == "<=" else entry["value"] - entry["bound"]
         entry["heat"] = study.reactor.heat
         entry["holds"] = h.excess <= study.numerics.check_tolerance * lim.bound
         if plug:

@@ -157,13 +157,21 @@ def window(study: Study, base: dict, *, workers: int | None = None, optimum: dic
     if not study.goal.limits:
         window_mask &= np.isfinite(maps[study.goal.metric.text])
     dx, dy = study.decision(spec.x), study.decision(spec.y)
-    fixed = {k: (convert(v, study.decision(k).si_unit, study.decision(k).unit) if study.decision(k).unit else v)
-             for k, v in base.items() if k not in (spec.x, spec.y) and not isinstance(v, list)}
+    fixed = {k: _fixed_text(v, study.decision(k)) for k, v in base.items() if k not in (spec.x, spec.y)}
     return WindowResult(study.name, spec.x, spec.y, dx.unit, dy.unit, _user(xs, dx), _user(ys, dy), maps, holds,
                         window_mask, fixed, study.goal.metric.text, optimum, spec.others,
                         {"total": time.perf_counter() - t0, "cells": len(xs) * len(ys)}, method,
                         {**{k: study.decision(k).unit for k in fixed},
                          study.goal.metric.text: metric_display(study.goal.metric, 1.0)[1]})
+
+
+def _fixed_text(v, d):
+    """A decision held fixed in the map, in user units; a profile summarized by its range."""
+    values = list(v) if isinstance(v, list) else getattr(v, "values", None)
+    if values is not None:
+        low, high = (convert(x, d.si_unit, d.unit) if d.unit else x for x in (min(values), max(values)))
+        return f"profile {low:.4g} to {high:.4g}"
+    return convert(v, d.si_unit, d.unit) if d.unit else v
 
 
 def _user(values: np.ndarray, d) -> np.ndarray:

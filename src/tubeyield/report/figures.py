@@ -45,30 +45,62 @@ def save(fig, stem) -> dict:
     return {"png": png, "png_path": stem.with_suffix(".png").name, "svg_path": stem.with_suffix(".svg").name}
 
 
-def profiles(profile, symbols, title: str):
-    """Concentrations and temperature along the reactor (rows of the optimum's profile table)."""
+MAJOR_RATIO = 5.0   # species whose largest concentrations exceed this many times those of all the others go on
+                    # their own axis (solvent, inerts, a large excess), so they do not flatten the rest
+
+
+def profiles(profile, symbols, title: str, *, T_limits=(), T_cool=None, space_time: bool = False):
+    """Concentrations and temperature along the reactor (rows of the optimum's profile table). `T_limits`:
+    (text, bound K) drawn on the temperature panel; `T_cool`: the coolant temperature (K); `space_time`: a gas feed,
+    whose axis is space time at inlet conditions (V / v0), not residence time."""
+    import numpy as np
     with plt.rc_context(STYLE):
         fig, (ax, axT) = plt.subplots(1, 2, figsize=(9.2, 3.4))
         if "tank" in profile:
             x, xlabel = profile["tank"], _label("tank", "")
             marker = "o"
         else:
-            x, xlabel = profile["residence_time_s"] / 60.0, _label("residence time", "min")
+            name = "space time at inlet conditions" if space_time else "residence time"
+            x, xlabel = profile["residence_time_s"] / 60.0, _label(name, "min")
             marker = None
+        peaks = {s: float(np.nanmax(profile[f"C_{s}_mol_per_m3"])) / 1000.0 for s in symbols}
+        # the species above the first gap of MAJOR_RATIO in the peaks (largest first) get the right-hand axis
+        ranked = sorted(symbols, key=lambda s: -peaks[s])
+        major = []
+        for k in range(1, len(ranked)):
+            if peaks[ranked[k]] > 0 and peaks[ranked[k - 1]] > MAJOR_RATIO * peaks[ranked[k]]:
+                major = ranked[:k]
+                break
+        ax2 = ax.twinx() if major else None
         for i, s in enumerate(symbols):
-            col = f"C_{s}_mol_per_m3"
-            ax.plot(x, profile[col] / 1000.0, marker=marker, label=s, color=PALETTE[i % len(PALETTE)],
-                    linestyle=LINESTYLES[(i // len(PALETTE)) % len(LINESTYLES)])
+            target = ax2 if s in major else ax
+            target.plot(x, profile[f"C_{s}_mol_per_m3"] / 1000.0, marker=marker, label=s + (" (right)" if s in major
+                        else ""), color=PALETTE[i % len(PALETTE)],
+                        linestyle=":" if s in major else LINESTYLES[(i // len(PALETTE)) % len(LINESTYLES)])
         ax.set_xlabel(xlabel)
         ax.set_ylabel(_label("concentration", "mol/L"))
         ax.set_title("concentrations")
-        ax.legend(ncol=2, fontsize=8)
-        axT.plot(x, profile["T_K"], color=PALETTE[3], marker=marker)
+        handles, labels = ax.get_legend_handles_labels()
+        if ax2 is not None:
+            ax2.set_ylabel(_label(", ".join(major), "mol/L"))
+            ax2.set_ylim(bottom=0.0)
+            h2, l2 = ax2.get_legend_handles_labels()
+            handles, labels = handles + h2, labels + l2
+        ax.legend(handles, labels, ncol=2, fontsize=8)
+        axT.plot(x, profile["T_K"], color=PALETTE[3], marker=marker, label="reactor")
+        for text, bound in T_limits:
+            axT.axhline(bound, color="#b44100", linestyle="--", linewidth=1.0, label=f"limit {text}")
+        if T_cool is not None:
+            axT.axhline(T_cool, color=PALETTE[0], linestyle=":", linewidth=1.2, label="coolant")
+        if T_limits or T_cool is not None:
+            axT.legend(fontsize=8)
         axT.set_xlabel(xlabel)
         axT.set_ylabel(_label("temperature", "K"))
         axT.set_title("temperature")
         fig.suptitle(title, fontsize=10.5)
         fig.tight_layout()
+        if ax2 is not None:
+            fig.subplots_adjust(wspace=0.5)     # room for the right-hand axis of the concentrations
     return fig
 
 
@@ -127,7 +159,11 @@ def window_maps(w, title: str):
     logx = w.x == "tau" and x[-1] / x[0] >= 10
     logy = w.y == "tau" and y[-1] / y[0] >= 10
     limits = list(w.holds)
-    n_side = max(1, (len(limits) + 1) // 2)          # limit panels on two rows at the right
+    # a limit that holds (or fails) in every cell has no edge on the map: no panel, a note in the title instead
+    shown = [t for t in limits if w.holds[t].any() and not w.holds[t].all()]
+    everywhere = [t for t in limits if w.holds[t].all()]
+    nowhere = [t for t in limits if not w.holds[t].any()]
+    n_side = max(1, (len(shown) + 1) // 2)           # limit panels on two rows at the right
     with plt.rc_context(STYLE):
         fig = plt.figure(figsize=(5.4 + 2.9 * n_side, 5.2))
         grid = fig.add_gridspec(2, 1 + n_side, width_ratios=[2.4] + [1] * n_side, hspace=0.55, wspace=0.6)
@@ -138,14 +174,15 @@ def window_maps(w, title: str):
         if w.window.any():
             ax.contourf(x, y, w.window.astype(float), levels=[0.5, 1.5], colors="none", hatches=["////"])
             ax.contour(x, y, w.window.astype(float), levels=[0.5], colors="white", linewidths=1.8)
-        for i, text in enumerate(limits):
+        for i, text in enumerate(shown):
             color = PALETTE[(i + 1) % len(PALETTE)]
             ax.contour(x, y, w.holds[text].astype(float), levels=[0.5], colors=[color], linewidths=1.2,
                        linestyles=LINESTYLES[i % len(LINESTYLES)])
             ax.plot([], [], color=color, ls=LINESTYLES[i % len(LINESTYLES)], label=f"edge of {text}")
         ax.plot([], [], color="white", lw=1.8, label="operating window (all limits hold)")
         if w.optimum:
-            ax.plot([w.optimum["x"]], [w.optimum["y"]], "*", color=PALETTE[3], ms=13, mec="white", label="optimum")
+            ax.plot([w.optimum["x"]], [w.optimum["y"]], "*", color=PALETTE[3], ms=13, mec="white", label="optimum",
+                    clip_on=False, zorder=5)              # visible on the map's edge too
         ax.set_xlabel(_label(w.x, w.x_unit))
         ax.set_ylabel(_label(w.y, w.y_unit))
         if logx:
@@ -155,11 +192,16 @@ def window_maps(w, title: str):
         ax.set_title(f"{w.goal}; others at the {'cell optimum' if w.others == 'optimized' else 'optimum'}")
         leg = ax.legend(fontsize=7.5, loc="upper center", bbox_to_anchor=(0.5, -0.13), ncol=2, frameon=True)
         leg.get_frame().set_facecolor("#eeeeee")
-        for i, text in enumerate(limits):
+        for i, text in enumerate(shown):
             sub = fig.add_subplot(grid[i % 2, 1 + i // 2])
-            sub.contourf(x, y, w.maps[text], levels=_levels(w.maps[text], 15), cmap="cividis", extend="both")
+            cl = sub.contourf(x, y, w.maps[text], levels=_levels(w.maps[text], 15), cmap="cividis", extend="both")
+            bar = fig.colorbar(cl, ax=sub, format="%.3g", pad=0.04)
+            bar.ax.tick_params(labelsize=6.5)
             sub.contour(x, y, w.holds[text].astype(float), levels=[0.5], colors="white", linewidths=1.2)
             sub.set_title(f"{text}\n(white: edge)", fontsize=8.5)
+            if w.optimum:
+                sub.plot([w.optimum["x"]], [w.optimum["y"]], "*", color=PALETTE[3], ms=8, mec="white",
+                         clip_on=False, zorder=5)
             sub.tick_params(labelsize=7)
             if logx:
                 sub.set_xscale("log")
@@ -167,7 +209,9 @@ def window_maps(w, title: str):
                 sub.set_yscale("log")
             sub.set_xlabel(_label(w.x, w.x_unit), fontsize=7.5)
             sub.set_ylabel(_label(w.y, w.y_unit), fontsize=7.5)
-        fig.suptitle(title, fontsize=10.5)
+        notes = ([f"holds everywhere: {', '.join(everywhere)}"] if everywhere else []) + \
+                ([f"holds nowhere: {', '.join(nowhere)}"] if nowhere else [])
+        fig.suptitle(title + (f"\n({'; '.join(notes)})" if notes else ""), fontsize=10.5)
     return fig
 
 

@@ -22,6 +22,7 @@ from tubeyield import __version__
 from tubeyield.errors import StudyError
 from tubeyield.report import figures
 from tubeyield.report.files import write_atomic
+from tubeyield.report.summary import summary
 from tubeyield.report.text import CAUTION, fmt, relaxed_text
 
 TEMPLATES = Path(__file__).parent / "templates"
@@ -76,7 +77,11 @@ def build_report(result_dir, out_dir=None) -> Path:
             profile = pd.read_csv(profile_csv)
             write_atomic(tab_dir / "profile.csv", profile.to_csv(index=False))
             figs["profiles"] = _inline(figures.save(
-                figures.profiles(profile, study.symbols, f"{study.name}: profiles at the optimum"),
+                figures.profiles(profile, study.symbols, f"{study.name}: profiles at the optimum",
+                                 T_limits=[(lim.text, lim.bound) for lim in study.goal.limits
+                                           if lim.metric is None and lim.sense == "<="],
+                                 T_cool=optimum.get("decisions_si", {}).get("T_cool"),
+                                 space_time=study.feed.phase == "gas"),
                 fig_dir / "profiles"))
     front_stats, front_decisions = {}, []
     if front and front.get("points"):
@@ -121,7 +126,7 @@ def build_report(result_dir, out_dir=None) -> Path:
                                for k, v in (window.fixed.items() if window else [])) or "none",
         window_share=float(window.window.mean()) if window else 0.0, sweep=sweep,
         points=study.reactor.points, inputs=inputs, provenance=_provenance(),
-        assumptions=_assumptions(study))
+        assumptions=_assumptions(study), summary=summary(optimum, window, sweep))
     index = out / "index.html"
     write_atomic(index, html)
     return index

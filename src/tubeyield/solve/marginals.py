@@ -47,10 +47,18 @@ class LimitReport:
     active: bool
     marginal: float           # goal (display unit) per user unit of the bound
     marginal_unit: str
+    bound: float = 0.0        # the limit's bound, in its user unit
+    sense: str = "<="
+
+    @property
+    def margin(self) -> float:
+        """Room left to the bound (> 0) or how much it is exceeded (< 0), in the bound's user unit."""
+        return self.bound - self.value if self.sense == "<=" else self.value - self.bound
 
     def to_dict(self):
         return {"text": self.text, "value": self.value, "unit": self.unit, "active": self.active,
-                "marginal": self.marginal, "marginal_unit": self.marginal_unit}
+                "marginal": self.marginal, "marginal_unit": self.marginal_unit, "bound": self.bound,
+                "sense": self.sense, "margin": self.margin}
 
 
 @dataclass
@@ -95,7 +103,9 @@ def limit_reports(model: ReactorModel) -> list[LimitReport]:
         active = abs(scaled) > ACTIVE_DUAL
         if not active:
             marginal = 0.0          # below the solver's noise: a limit that does not bind is worth nothing
-        out.append(LimitReport(lim.text, value, lim.unit, active, marginal, _per(model, lim.name, lim.unit)))
+        bound = convert(lim.bound, si_unit, lim.unit) if lim.unit else lim.bound
+        out.append(LimitReport(lim.text, value, lim.unit, active, marginal, _per(model, lim.name, lim.unit),
+                               bound, lim.sense))
     return out
 
 

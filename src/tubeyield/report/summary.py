@@ -1,0 +1,109 @@
+"""The summary a design review reads first: the recommended point, what limits it, its margins, how it was verified,
+how robust it is, and everything that should stop a reviewer, in words.
+
+A pure function of the saved results (optimum.json, window.json, sweep-summary.json as dicts); the report template
+renders it at the top of the page.
+"""
+
+from __future__ import annotations
+
+from tubeyield import status as st
+from tubeyield.report.text import fmt
+
+NOISE = 1e-7              # a margin below this share of the bound is solver noise: shown as 0
+FEW_SCENARIOS = 0.9        # a recommended point meeting every limit in fewer scenarios than this share is flagged
+
+
+def _quantity(value, unit: str, digits: int = 4) -> str:
+    return f"{fmt(value, digits)} {unit}".rstrip() if value is not None else "-"
+
+
+def summary(optimum: dict | None, window=None, sweep: dict | None = None) -> dict:
+    """{"headline", "point": [(decision, value)], "limits": [{text, value, margin, binding, marginal, holds}],
+    "verification", "robustness", "stops": [reasons a reviewer should not accept the point as it stands]}."""
+    stops: list[str] = []
+    out = {"headline": "", "point": [], "limits": [], "verification": "", "robustness": "", "stops": stops}
+    if not optimum:
+        out["headline"] = "No optimization result was saved: run `tubeyield optimize STUDY --save DIR`."
+        stops.append("there is no verified operating point in this report")
+        return out
+    status = optimum["status"]
+    g = optimum["goal"]
+    word = "maximize" if g.get("sense") == "max" else "minimize"
+    if status in st.SOLVED and g.get("value") is not None:
+        out["headline"] = (f"Recommended operating point ({status}): {g['metric']} = "
+                           f"{_quantity(g['value'], g.get('unit', ''), 5)} (goal: {word} {g['metric']}).")
+    elif status == st.INFEASIBLE:
+        out["headline"] = "No operating point within the decision ranges meets every limit (infeasible)."
+    else:
+        out["headline"] = f"The optimization did not give an operating point ({status})."
+    if status == st.UNVERIFIED:
+        stops.append("NOT VERIFIED: " + (optimum.get("message") or "the re-simulation disagrees with the model"))
+    elif status == st.INFEASIBLE:
+        stops.append("INFEASIBLE: " + (optimum.get("message") or "the limits cannot hold together"))
+    elif status not in st.SOLVED:
+        stops.append(f"FAILED: {optimum.get('message') or status}")
+
+    for name, d in optimum.get("decisions", {}).items():
+        if isinstance(d.get("value"), list):
+            value = f"profile from {fmt(d['min'], 4)} to {fmt(d['max'], 4)} {d['unit']}".rstrip()
+        else:
+            value = _quantity(d["value"], d.get("unit", ""))
+        note = ""
+        for b in optimum.get("bounds", []):
+            if b["decision"] == name and b["side"] in ("low", "high"):
+                where = f"at its {'lower' if b['side'] == 'low' else 'upper'} bound"
+                share = b.get("share", 1.0)
+                note = where if share >= 1.0 else f"{100 * share:.0f} % of its points {where}"
+        out["point"].append((name, value + (f" ({note})" if note else "")))
+
+    for lim in optimum.get("limits", []):
+        unit = lim.get("unit", "")
+        margin = lim.get("margin")
+        holds = lim.get("holds", margin is None or margin >= -1e-9 * max(1.0, abs(lim.get("bound") or 0.0)))
+        if lim.get("active"):
+            marginal = f"{lim['marginal']:+.3g} {lim['marginal_unit']}"
+            if lim.get("relaxed"):
+                marginal += (f"; holds to {_quantity(lim['holds_to'], unit)}" if lim.get("holds_to") is not None
+                             else "; holds only for small changes")
+        else:
+            marginal = "0 (not binding)"
+        scale = max(abs(lim.get("bound") or 0.0), 1e-12)
+        if margin is not None and (lim.get("active") or abs(margin) <= NOISE * scale):
+            margin_text = _quantity(0.0, unit) if abs(margin) <= NOISE * scale else _quantity(margin, unit)
+        else:
+            margin_text = _quantity(margin, unit) if margin is not None else "-"
+        out["limits"].append({"text": lim["text"], "value": _quantity(lim["value"], unit), "margin": margin_text,
+                              "binding": bool(lim.get("active")), "marginal": marginal, "holds": bool(holds)})
+        if status in st.SOLVED and not holds:
+            stops.append(f"{lim['text']} is exceeded at the recommended point (by {_quantity(-margin, unit)})")
+
+    c = optimum.get("check")
+    if c:
+        out["verification"] = (f"Re-simulated with {c.get('integrator', 'scipy')}: largest outlet-flow difference "
+                               f"{c['max_rel_error']:.1e} (tolerance {c['tolerance']:.0e}), "
+                               f"{'passed' if c['passed'] else 'NOT passed'}, on {c['elements']} elements.")
+        if not c["passed"] and status != st.UNVERIFIED:
+            stops.append("the re-simulation does not agree with the model within its tolerance")
+
+    rb = (sweep or {}).get("robust")
+    if rb and rb.get("rows"):
+        target = rb.get("target", 0.95)
+        nominal = next((r for r in rb["rows"] if r["label"] == "nominal optimum"), None)
+        best = next((r for r in rb["rows"] if r["label"] == rb.get("best")), None)
+        parts = []
+        if nominal is not None:
+            parts.append(f"the optimum meets every limit in {100 * nominal['share']:.0f} % of "
+                         f"{rb['scenarios']} scenarios")
+            if nominal["share"] < FEW_SCENARIOS:
+                stops.append(f"under the sweep's uncertainty the optimum meets every limit in only "
+                             f"{100 * nominal['share']:.0f} % of the scenarios (target {100 * target:.0f} %)")
+        if best is not None and best is not nominal:
+            parts.append(f"{best['label']} meets them in {100 * best['share']:.0f} % "
+                         f"(mean {g['metric']} {fmt(best['mean'], 4)})")
+        out["robustness"] = "Sweep: " + "; ".join(parts) + "." if parts else ""
+    if window is not None:
+        share = float(window.window.mean())
+        if share == 0.0:
+            stops.append("the window map has no cell where every limit holds")
+    return out
