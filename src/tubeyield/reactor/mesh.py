@@ -13,8 +13,8 @@ section 10.4, element placement by residual and equidistribution).
 
 Equidistribution. With K Radau points the residual is O(h^K), so e_k = C_k h_k^(K+1); a mesh on which the density
 m = C^(1/(K+1)) has equal integral over every element makes every element's error the same, the classical
-equidistribution principle (C. de Boor, "Good approximation by splines with variable knots II", Lecture Notes in
-Mathematics 363, Springer 1974, 12-20; U. M. Ascher, R. M. M. Mattheij and R. D. Russell, Numerical Solution of
+equidistribution principle (C. de Boor, "Good approximation by splines with variable knots II", in: Conference
+on the Numerical Solution of Differential Equations, Springer LNM 363, 1974, 12-20; U. M. Ascher, R. M. M. Mattheij and R. D. Russell, Numerical Solution of
 Boundary Value Problems for ODEs, SIAM 1995, section 9.3). The density is floored at a share of its mean, so that a
 region where the estimate happens to vanish still keeps elements.
 """

@@ -150,8 +150,28 @@ class Reversible(RateLaw):
         return {"K": LawPath("lnK", "constant", power=self.dn, log=True)}
 
 
+class AdsorbingLaw(RateLaw):
+    """What the adsorption laws share: adsorption terms (species, K_i(T)) in `self.terms`, the Langmuir denominator
+    1 + sum K_i c_i, and their constants (ln K_i and dH_i of each species) pinned and varied as K.<s>, dH.<s>."""
+
+    def denominator(self, conc, T, mx):
+        value = 1.0
+        for s, ads in self.terms:
+            value = value + mx.exp(ads.ln_value(T, mx)) * conc[s]
+        return value
+
+    def constants(self):
+        return adsorption_constants(self.terms)
+
+    def with_constants(self, values):
+        return replace(self, terms=adsorption_with(self.terms, values))
+
+    def paths(self):
+        return adsorption_paths(self.terms)
+
+
 @dataclass(frozen=True)
-class Adsorption(RateLaw):
+class Adsorption(AdsorbingLaw):
     """r = k(T) prod c_i^n_i / (1 + sum K_i(T) c_i)^m, each K_i by van 't Hoff (Langmuir-Hinshelwood-Hougen-Watson
     form; Froment, Bischoff and De Wilde, Chemical Reactor Analysis and Design, 3rd ed. 2011, ch. 2)."""
     name: ClassVar[str] = "adsorption"
@@ -165,27 +185,13 @@ class Adsorption(RateLaw):
         terms = read_adsorption(t, ctx)
         return cls(terms, number(t.take("denominator_power", 1.0), t.key("denominator_power"), low=0.0))
 
-    def denominator(self, conc, T, mx):
-        value = 1.0
-        for s, ads in self.terms:
-            value = value + mx.exp(ads.ln_value(T, mx)) * conc[s]
-        return value
-
     def rate(self, k, forward, conc, T, mx, dH):
         return k * forward / self.denominator(conc, T, mx) ** self.power
 
-    def constants(self):
-        return adsorption_constants(self.terms)
-
-    def with_constants(self, values):
-        return replace(self, terms=adsorption_with(self.terms, values))
-
-    def paths(self):
-        return adsorption_paths(self.terms)
 
 
 @dataclass(frozen=True)
-class LangmuirHinshelwood(RateLaw):
+class LangmuirHinshelwood(AdsorbingLaw):
     """Bimolecular surface reaction between two adsorbed reactants on one kind of site, surface reaction rate
     controlling: r = k(T) K_A c_A K_B c_B / (1 + sum K_i(T) c_i)^2 (Hougen and Watson, Chemical Process
     Principles III, 1947; Fogler, Elements of Chemical Reaction Engineering, 5th ed. 2016, ch. 10, from memory).
@@ -216,21 +222,11 @@ class LangmuirHinshelwood(RateLaw):
         return 1.0                   # K_A c_A K_B c_B is dimensionless: k is a rate, mol/(m^3 s)
 
     def rate(self, k, forward, conc, T, mx, dH):
-        K = {s: mx.exp(ads.ln_value(T, mx)) for s, ads in self.terms}
+        K = dict(self.terms)
         a, b = self.pair
-        denominator = 1.0
-        for s, _ in self.terms:
-            denominator = denominator + K[s] * conc[s]
-        return k * K[a] * forward * K[b] / denominator ** 2
+        K_a, K_b = mx.exp(K[a].ln_value(T, mx)), mx.exp(K[b].ln_value(T, mx))
+        return k * K_a * forward * K_b / self.denominator(conc, T, mx) ** 2
 
-    def constants(self):
-        return adsorption_constants(self.terms)
-
-    def with_constants(self, values):
-        return replace(self, terms=adsorption_with(self.terms, values))
-
-    def paths(self):
-        return adsorption_paths(self.terms)
 
 
 LAWS: dict[str, type[RateLaw]] = {law.name: law for law in (PowerLaw, Reversible, Adsorption, LangmuirHinshelwood)}
