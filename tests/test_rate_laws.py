@@ -112,9 +112,14 @@ def test_law_constants_are_pinned_so_a_sweep_varies_them_without_a_rebuild():
     reused = optimize(changed, model=model)                # the base model, its pinned constants moved
     fresh = optimize(changed)
     assert reused.status == fresh.status == "optimal"
-    assert reused.decisions_si["tau"] == pytest.approx(fresh.decisions_si["tau"], rel=1e-6)
-    # and the change matters: the base study needs another residence time for the same conversion
-    assert optimize(base).decisions_si["tau"] != pytest.approx(fresh.decisions_si["tau"], rel=1e-3)
+    assert reused.goal["value"] == pytest.approx(fresh.goal["value"], rel=1e-8)
+    # The optimum is a curve (conversion <= 0.7 with conversion maximized: any tau, T on conversion = 0.7), so the
+    # two runs may stop at different points of it. What shows the constants were moved: the reference simulation
+    # with the changed constants reaches the limit at the reused model's point, and with the base constants it does not.
+    def conversion(study):
+        return evaluate(study, reused.decisions_si).metrics["conversion:A"]["value"]
+    assert conversion(changed) == pytest.approx(0.7, rel=1e-6)
+    assert conversion(base) != pytest.approx(0.7, rel=1e-3)
 
 
 def test_sweep_paths_of_law_constants_parse_with_units():

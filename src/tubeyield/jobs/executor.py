@@ -3,6 +3,7 @@
     executor.share(obj) -> handle      what tasks receive for an object shared by all (pickled with each task)
     executor.submit(fn, *args) -> future
     executor.wait_some(futures, t)     the futures finished within t seconds (an empty list when none did)
+    executor.result(future)            a finished future's value; raises if it failed or its value was lost
     executor.workers()                 how many workers can take tasks now
     executor.restart()                 after a local worker process died: a fresh pool
     executor.shutdown(cancel)          stop; cancel what has not started
@@ -22,6 +23,7 @@ import time
 
 
 PARENT_POLL = 0.5     # s between a worker's checks that its parent is alive
+RESULT_WAIT = 10.0    # s to fetch a finished Dask task's value before it counts as lost with its worker
 
 
 def _worker_init(parent: int) -> None:
@@ -67,6 +69,9 @@ class LocalExecutor:
     def wait_some(self, futures, timeout: float) -> list:
         return list(cf.wait(futures, timeout=timeout, return_when=cf.FIRST_COMPLETED).done)
 
+    def result(self, future):
+        return future.result()
+
     def workers(self) -> int:
         return self.n_workers
 
@@ -103,6 +108,12 @@ class DaskExecutor:
         except (TimeoutError, FuturesCancelledError):
             pass            # cancelled futures are done too: their result() raises, and the driver resubmits them
         return [f for f in futures if f.done()]
+
+    def result(self, future):
+        # A finished task's value lives on its worker: when that worker has died, result() asks the scheduler to
+        # compute it again and would wait for a worker forever (seen with the only worker killed). Bounded here;
+        # the driver then counts the task as lost with its worker and resubmits it.
+        return future.result(timeout=RESULT_WAIT)
 
     def workers(self) -> int:
         return len(self.client.scheduler_info().get("workers", {}))

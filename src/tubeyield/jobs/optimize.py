@@ -23,9 +23,10 @@ from tubeyield.jobs.result import Result
 from tubeyield.reactor.metrics import all_metrics, metric_display
 from tubeyield.reactor.model import ReactorModel
 from tubeyield.reactor.verify import compare, reference
-from tubeyield.solve import ACCEPTABLE_CONDITIONS, OK_CONDITIONS, make_solver
+from tubeyield.solve import ACCEPTABLE_CONDITIONS, OK_CONDITIONS, STALLED_CONDITIONS, make_solver
 from tubeyield.solve import multistart
 from tubeyield.solve.marginals import bound_reports, limit_reports
+from tubeyield.solve.options import STALL_OPTIONS
 from tubeyield.study.schema import Study
 from tubeyield.study.units import convert, decision_to_user, decisions_to_user
 
@@ -86,12 +87,22 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
         model.initialize(cand.simulation)
         res = timed_solve(solver, model, timing, options=options, reuse_structure=i > 0 or reuse, tee=tee)
         condition = res.solver.termination_condition
+        retried = condition in STALLED_CONDITIONS
+        if retried:
+            # the same start once more with the other barrier strategy (solve/options.py, STALL_OPTIONS)
+            model.set_decisions(cand.decisions)
+            model.initialize(cand.simulation)
+            res = timed_solve(solver, model, timing, options={**STALL_OPTIONS, **options}, reuse_structure=True,
+                              tee=tee)
+            condition = res.solver.termination_condition
         if condition in ACCEPTABLE_CONDITIONS:
             # Ipopt stopped at its "acceptable" level only: go on from there once, warm, before flagging it
             res = timed_solve(solver, model, timing, options=options, reuse_structure=True, warmstart=True, tee=tee)
             condition = res.solver.termination_condition
         run = {"from": cand.label, "start": decisions_to_user(study, cand.decisions), "status": str(condition),
                "iterations": solver.last_stats.get("iterations"), "goal": None}
+        if retried:
+            run["retried"] = "stalled at first; solved again with a monotone barrier update"
         if condition in OK_CONDITIONS or condition in ACCEPTABLE_CONDITIONS:
             run["goal"] = model.metric_value(study.goal.metric)
             run["acceptable_only"] = condition not in OK_CONDITIONS

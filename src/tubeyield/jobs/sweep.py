@@ -300,7 +300,7 @@ def _drive(executor, study: Study, todo: list[Scenario], store: Store, outcome: 
             for fut in finished:
                 s = running.pop(fut)
                 try:
-                    row = fut.result()
+                    row = executor.result(fut)
                 except BrokenProcessPool:
                     broken = True
                     again(s, "the worker process died")

@@ -8,7 +8,7 @@ import pyomo.environ as pyo
 
 from tubeyield.errors import StudyError
 # importing the plug-in module registers it with Pyomo's SolverFactory
-from tubeyield.solve.ipopt import ACCEPTABLE_CONDITIONS, NAME, OK_CONDITIONS
+from tubeyield.solve.ipopt import ACCEPTABLE_CONDITIONS, NAME, OK_CONDITIONS, STALLED_CONDITIONS
 
 
 def make_solver(numerics):
@@ -40,4 +40,4 @@ class ExecutableIpopt:
         return res
 
 
-__all__ = ["ACCEPTABLE_CONDITIONS", "NAME", "OK_CONDITIONS", "make_solver"]
+__all__ = ["ACCEPTABLE_CONDITIONS", "NAME", "OK_CONDITIONS", "STALLED_CONDITIONS", "make_solver"]

@@ -71,6 +71,8 @@ _STATUS = {
 # Only Solve_Succeeded counts as converged; "acceptable" stops are retried or flagged by the jobs.
 OK_CONDITIONS = (TerminationCondition.optimal,)
 ACCEPTABLE_CONDITIONS = (TerminationCondition.locallyOptimal,)
+# a solve that stopped without a verdict on the problem: iteration limit, failed restoration, tiny search direction
+STALLED_CONDITIONS = (TerminationCondition.maxIterations, TerminationCondition.other)
 
 
 def termination_of(return_status: str) -> tuple[SolverStatus, TerminationCondition]:
