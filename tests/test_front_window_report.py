@@ -2,6 +2,7 @@
 
 import dataclasses
 import json
+import re
 import subprocess
 import sys
 from html.parser import HTMLParser
@@ -194,6 +195,18 @@ def test_cli_pipeline_writes_a_complete_report(tmp_path):
         assert (out / "tables" / f"{table}.csv").stat().st_size > 50
     front_data = json.loads((res / "front.json").read_text())
     assert front_data["status"] == "done" and len(front_data["points"]) == 7
+    # self-contained: zipped, moved and unpacked elsewhere, every link still resolves inside the report folder
+    import shutil
+    import zipfile
+    archive = shutil.make_archive(str(tmp_path / "handed-on"), "zip", out)
+    shutil.rmtree(out)
+    moved = tmp_path / "elsewhere" / "report"
+    zipfile.ZipFile(archive).extractall(moved)
+    html = (moved / "index.html").read_text()
+    assert str(tmp_path) not in html and "file:" not in html
+    links = re.findall(r'(?:href|src)="([^"#][^"]*)"', html)
+    files = [u for u in links if not u.startswith("data:")]
+    assert files and all((moved / u).is_file() for u in files), [u for u in files if not (moved / u).is_file()]
 
 
 def test_report_of_a_missing_directory_is_a_user_error(tmp_path):

@@ -51,3 +51,9 @@ def test_an_exceeded_limit_and_a_fragile_point_are_stops():
 def test_no_saved_optimum_says_so():
     s = summary(None)
     assert "No optimization result" in s["headline"] and s["stops"]
+
+
+def test_a_network_that_fails_its_check_is_a_stop():
+    out = summary(_optimum(), network_errors=["stoichiometrically inconsistent: back, surface"])
+    assert any(s.startswith("NETWORK CHECK:") and "back, surface" in s for s in out["stops"])
+    assert not summary(_optimum())["stops"]

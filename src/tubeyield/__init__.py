@@ -5,8 +5,9 @@ The Python API (tubeyield.api) is re-exported here: `import tubeyield as ty; ty.
 
 __version__ = "0.1.0"
 
-_API = ("CheckReport", "FrontResult", "Result", "Study", "StudyError", "SweepOutcome", "WindowResult", "check",
-        "front", "load", "load_study", "optimize", "report", "simulate", "sweep", "sweep_summary", "window")
+_API = ("CheckReport", "FitResult", "FrontResult", "Result", "Study", "StudyError", "SweepOutcome", "WindowResult",
+        "check", "fit", "front", "load", "load_study", "optimize", "report", "simulate", "sweep", "sweep_summary",
+        "window")
 __all__ = list(_API)
 
 

@@ -18,14 +18,16 @@ from pathlib import Path
 
 from tubeyield.chemistry.consistency import CheckReport
 from tubeyield.errors import StudyError
+from tubeyield.jobs.fit import FitResult
 from tubeyield.jobs.front import FrontResult
 from tubeyield.jobs.result import Result
 from tubeyield.jobs.sweep import SweepOutcome
 from tubeyield.jobs.window import WindowResult
 from tubeyield.study import Study, load_study
 
-__all__ = ["CheckReport", "FrontResult", "Result", "Study", "StudyError", "SweepOutcome", "WindowResult", "check",
-           "front", "load", "load_study", "optimize", "report", "simulate", "sweep", "sweep_summary", "window"]
+__all__ = ["CheckReport", "FitResult", "FrontResult", "Result", "Study", "StudyError", "SweepOutcome", "WindowResult",
+           "check", "fit", "front", "load", "load_study", "optimize", "report", "simulate", "sweep", "sweep_summary",
+           "window"]
 
 
 def load(path) -> Study:
@@ -51,6 +53,13 @@ def check(study) -> CheckReport:
     """The network checks: stoichiometric consistency (HiGHS), element and mass balances, reachability."""
     from tubeyield.chemistry.consistency import check_network
     return check_network(_study(study))
+
+
+def fit(study) -> FitResult:
+    """The [fit] parameters estimated from the study's [[experiment]] runs, with linearized statistics
+    (jobs/fit.py); `to_frame()` gives the parameter table."""
+    from tubeyield.jobs.fit import fit as _fit
+    return _fit(_study(study, "fit"))
 
 
 def optimize(study, *, starts: int | None = None, seed: int = 0, relax: bool = True) -> Result:

@@ -18,6 +18,7 @@ import sys
 from tubeyield import __version__
 from tubeyield.errors import SolverOptionRefused, SolverUnavailable, StudyError
 from tubeyield.guard import TimeLimitReached, time_guard
+from tubeyield.report.files import SAVED
 from tubeyield.status import EXIT_FAILED, EXIT_OK, EXIT_USER, SOLVED, exit_code
 
 
@@ -33,7 +34,7 @@ def _parser() -> argparse.ArgumentParser:
     o = sub.add_parser("optimize", help="find the best operating point, what limits it, and verify it")
     o.add_argument("study")
     o.add_argument("--json", action="store_true", help="print the Result as JSON")
-    o.add_argument("--save", metavar="DIR", help="write optimum.json, optimum-profile.csv and the inputs to DIR")
+    o.add_argument("--save", metavar="DIR", help=f"write {SAVED['optimize']}, {SAVED['optimize-profile']} and the inputs to DIR")
     o.add_argument("--starts", type=int, help="number of starting points (default: numerics.starts)")
     o.add_argument("--tee", action="store_true", help="show Ipopt's iteration log")
 
@@ -48,15 +49,15 @@ def _parser() -> argparse.ArgumentParser:
     f.add_argument("study")
     f.add_argument("--points", type=int, help="number of levels (default: front.points)")
     f.add_argument("--json", action="store_true")
-    f.add_argument("--save", metavar="DIR", help="write front.json and front.csv to DIR")
+    f.add_argument("--save", metavar="DIR", help=f"write {SAVED['front']} and {SAVED['front-table']} to DIR")
 
     w = sub.add_parser("window", help="maps of the goal and the limits over the two decisions in [window]")
     w.add_argument("study")
-    w.add_argument("--at", metavar="RESULT_JSON", help="an optimum.json to fix the other decisions at (default: "
+    w.add_argument("--at", metavar="RESULT_JSON", help=f"an {SAVED['optimize']} to fix the other decisions at (default: "
                                                         "optimize first)")
     w.add_argument("--workers", type=int, help="processes for cell-by-cell maps (default: all cores)")
     w.add_argument("--json", action="store_true")
-    w.add_argument("--save", metavar="DIR", help="write window.json to DIR")
+    w.add_argument("--save", metavar="DIR", help=f"write {SAVED['window']} to DIR")
 
     sw = sub.add_parser("sweep", help="run every scenario of [sweep] into a SQLite store")
     sw.add_argument("study")
@@ -74,9 +75,15 @@ def _parser() -> argparse.ArgumentParser:
     sr = sub.add_parser("sweep-report", help="summarize a sweep store: distributions, influence, robustness")
     sr.add_argument("store")
     sr.add_argument("--study", help="the study file (default: the copy kept in the store)")
-    sr.add_argument("--save", metavar="DIR", help="write sweep-summary.json (and the inputs) to DIR for the report")
+    sr.add_argument("--save", metavar="DIR", help=f"write {SAVED['sweep-report']} (and the inputs) to DIR for the report")
     sr.add_argument("--workers", type=int)
     sr.add_argument("--json", action="store_true")
+
+    ft = sub.add_parser("fit", help="estimate the kinetics in [fit] from the lab runs in [[experiment]]")
+    ft.add_argument("study")
+    ft.add_argument("--json", action="store_true", help="print the fit as JSON")
+    ft.add_argument("--save", metavar="DIR", help=f"write {SAVED['fit']} and the inputs to DIR")
+    ft.add_argument("--tee", action="store_true", help="show Ipopt's iteration log")
 
     r = sub.add_parser("report", help="build the HTML report from saved results")
     r.add_argument("results", help="a directory written by --save")
@@ -156,7 +163,7 @@ def _check(args) -> int:
     from tubeyield import api
     from tubeyield.chemistry.network import Network
 
-    study = _load(args.study, need=("front", "window", "sweep"))
+    study = _load(args.study, need=("front", "window", "sweep", "fit"))
     report = api.check(study)
     net = Network.of(study)
     if args.json:
@@ -207,7 +214,7 @@ def _optimize(args) -> int:
     _at_least(args.starts, "--starts", 1, "a number of starting points")
     result = optimize(study, starts=args.starts, tee=args.tee, relax=True)
     if args.save:
-        save_result(args.save, "optimum", result, study)
+        save_result(args.save, "optimize", result, study)
     if args.json:
         _print_json(result.to_dict())
     else:
@@ -238,17 +245,15 @@ def _simulate(args) -> int:
 
 
 def _front(args) -> int:
-    from pathlib import Path
-
     from tubeyield.jobs.front import front
-    from tubeyield.report.files import save_inputs, write_atomic, write_json
+    from tubeyield.report.files import save_inputs, saved, write_atomic, write_json
 
     study = _load(args.study, "front", "x, y and points")
     _at_least(args.points, "--points", 3, "a number of levels")
     result = front(study, points=args.points)
     if args.save:
-        write_json(Path(args.save) / "front.json", result.to_dict())
-        write_atomic(Path(args.save) / "front.csv", result.table().to_csv(index=False))
+        write_json(saved(args.save, "front"), result.to_dict())
+        write_atomic(saved(args.save, "front-table"), result.table().to_csv(index=False))
         save_inputs(args.save, study)
     if args.json:
         _print_json(result.to_dict())
@@ -265,16 +270,16 @@ def _window(args) -> int:
     from tubeyield.jobs.optimize import optimize
     from tubeyield.jobs.result import point_of
     from tubeyield.jobs.window import optimum_marker, window
-    from tubeyield.report.files import save_inputs, write_json
+    from tubeyield.report.files import save_inputs, saved, write_json
 
     study = _load(args.study, "window", "x, y and points")
     if args.at:
         try:
-            saved = _json.loads(Path(args.at).read_text(encoding="utf-8"))
-            base = point_of(saved["decisions_si"], saved["decisions"])
-            status = saved["status"]
+            optimum_d = _json.loads(Path(args.at).read_text(encoding="utf-8"))
+            base = point_of(optimum_d["decisions_si"], optimum_d["decisions"])
+            status = optimum_d["status"]
         except (OSError, ValueError, KeyError) as exc:
-            raise StudyError(args.at, f"an optimum.json written by 'tubeyield optimize --save' ({exc})") from None
+            raise StudyError(args.at, f"an {SAVED['optimize']} written by 'tubeyield optimize --save' ({exc})") from None
         if set(base) != {d.name for d in study.decisions}:
             raise StudyError(args.at, "an optimum of this study (its decisions differ)")
     else:
@@ -284,7 +289,7 @@ def _window(args) -> int:
     _at_least(args.workers, "--workers", 1, "a number of processes")
     result = window(study, base, workers=args.workers, optimum=optimum)
     if args.save:
-        write_json(Path(args.save) / "window.json", result.to_dict())
+        write_json(saved(args.save, "window"), result.to_dict())
         save_inputs(args.save, study)
     if args.json:
         _print_json(result.to_dict())
@@ -323,15 +328,13 @@ def _sweep(args) -> int:
 
 
 def _sweep_report(args) -> int:
-    from pathlib import Path
-
     from tubeyield.jobs.sweep_summary import summarize
-    from tubeyield.report.files import write_json
+    from tubeyield.report.files import saved, write_json
 
     study = _load(args.study, "sweep", "'vary'", guard=False) if args.study else None
     summary = summarize(args.store, study, workers=args.workers)
     if args.save:
-        write_json(Path(args.save) / "sweep-summary.json", summary)
+        write_json(saved(args.save, "sweep-report"), summary)
         if study is not None:
             from tubeyield.report.files import save_inputs
             save_inputs(args.save, study)
@@ -343,6 +346,23 @@ def _sweep_report(args) -> int:
     return EXIT_OK
 
 
+def _fit(args) -> int:
+    from tubeyield.jobs.fit import fit
+    from tubeyield.report.files import save_inputs, saved, write_json
+    from tubeyield.report.text import fit_summary
+
+    study = _load(args.study, "fit", "estimate (and [[experiment]] runs)")
+    result = fit(study, tee=args.tee)
+    if args.save:
+        write_json(saved(args.save, "fit"), result.to_dict())
+        save_inputs(args.save, study)
+    if args.json:
+        _print_json(result.to_dict())
+    else:
+        print(fit_summary(result))
+    return exit_code(result.status)
+
+
 def _report(args) -> int:
     from tubeyield.report.html import build_report
     index = build_report(args.results, args.out)
@@ -351,4 +371,4 @@ def _report(args) -> int:
 
 
 JOBS = {"check": _check, "optimize": _optimize, "simulate": _simulate, "front": _front, "window": _window,
-        "report": _report, "sweep": _sweep, "sweep-report": _sweep_report}
+        "report": _report, "sweep": _sweep, "sweep-report": _sweep_report, "fit": _fit}

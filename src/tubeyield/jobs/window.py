@@ -115,7 +115,9 @@ def _holds(study: Study, values: dict) -> dict:
             bound = convert(lim.bound, "K", lim.unit) if lim.unit else lim.bound
         else:
             bound = convert(lim.bound, lim.metric.si_unit, lim.unit) if lim.unit else lim.bound
-        tol = 1e-9 * max(1.0, abs(bound))
+        # a cell on the boundary holds: the simulations are trusted to the study's check tolerance, so an optimum
+        # sitting on a limit (which the map's cells then touch) is not judged outside the window by round-off
+        tol = study.numerics.check_tolerance * max(1.0, abs(bound))
         out[lim.text] = (v <= bound + tol) if lim.sense == "<=" else (v >= bound - tol)
     return out
 

@@ -231,7 +231,8 @@ def histogram_grid(columns: dict, title: str):
             elif v.size:
                 ax.hist(v, bins=min(30, max(5, v.size // 8)), color=PALETTE[0], edgecolor="white")
             ax.set_xlabel(_label(name, unit), fontsize=8)
-            ax.set_ylabel(_label("scenarios", ""), fontsize=8)
+            ax.set_ylabel("scenarios", fontsize=8)
+            ax.yaxis.set_major_locator(matplotlib.ticker.MaxNLocator(integer=True))    # counts: whole ticks only
         for ax in axes.ravel()[n:]:
             ax.axis("off")
         fig.suptitle(title, fontsize=10.5)

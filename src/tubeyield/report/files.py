@@ -46,11 +46,26 @@ def save_inputs(directory: Path, study) -> None:
 
 SOURCES = "sources.json"
 
+# What each job saves with --save, under one name the command line writes and the report reads.
+SAVED = {
+    "optimize": "optimum.json",
+    "optimize-profile": "optimum-profile.csv",
+    "front": "front.json",
+    "front-table": "front.csv",
+    "window": "window.json",
+    "sweep-report": "sweep-summary.json",
+    "fit": "fit.json",
+}
 
-def save_result(directory: Path, name: str, result, study) -> None:
-    """<dir>/<name>.json and, when the result has a profile, <dir>/<name>-profile.csv; and the inputs."""
-    directory = Path(directory)
-    write_json(directory / f"{name}.json", result.to_dict())
+
+def saved(directory, what: str) -> Path:
+    """Where `what` (a key of SAVED) is saved in a results directory."""
+    return Path(directory) / SAVED[what]
+
+
+def save_result(directory: Path, job: str, result, study) -> None:
+    """The result of `job` (SAVED[job]) and, when it has a profile, SAVED[job + "-profile"]; and the inputs."""
+    write_json(saved(directory, job), result.to_dict())
     if result.profile is not None:
-        write_atomic(directory / f"{name}-profile.csv", result.profile.to_csv(index=False))
+        write_atomic(saved(directory, f"{job}-profile"), result.profile.to_csv(index=False))
     save_inputs(directory, study)

@@ -21,9 +21,10 @@ import pandas as pd
 from tubeyield import __version__
 from tubeyield.errors import StudyError
 from tubeyield.report import figures
-from tubeyield.report.files import write_atomic
+from tubeyield.report.files import saved, write_atomic
 from tubeyield.report.summary import summary
 from tubeyield.report.text import CAUTION, fmt, relaxed_text
+from tubeyield.study.units import rate_constant_from_si
 
 TEMPLATES = Path(__file__).parent / "templates"
 
@@ -63,16 +64,16 @@ def build_report(result_dir, out_dir=None) -> Path:
     study, inputs = _study_from_inputs(result_dir)
     out = Path(out_dir) if out_dir else Path("reports") / study.name
     fig_dir, tab_dir = out / "figures", out / "tables"
-    optimum = _load_json(result_dir / "optimum.json")
-    front = _load_json(result_dir / "front.json")
-    window_d = _load_json(result_dir / "window.json")
-    sweep = _load_json(result_dir / "sweep-summary.json")
+    optimum = _load_json(saved(result_dir, "optimize"))
+    front = _load_json(saved(result_dir, "front"))
+    window_d = _load_json(saved(result_dir, "window"))
+    sweep = _load_json(saved(result_dir, "sweep-report"))
     figs: dict = {}
     tables: dict = {}
 
     if optimum:
         tables["decisions"], tables["limits"] = _optimum_tables(optimum, tab_dir)
-        profile_csv = result_dir / "optimum-profile.csv"
+        profile_csv = saved(result_dir, "optimize-profile")
         if profile_csv.exists():
             profile = pd.read_csv(profile_csv)
             write_atomic(tab_dir / "profile.csv", profile.to_csv(index=False))
@@ -126,7 +127,7 @@ def build_report(result_dir, out_dir=None) -> Path:
                                for k, v in (window.fixed.items() if window else [])) or "none",
         window_share=float(window.window.mean()) if window else 0.0, sweep=sweep,
         points=study.reactor.points, inputs=inputs, provenance=_provenance(),
-        assumptions=_assumptions(study), summary=summary(optimum, window, sweep))
+        assumptions=_assumptions(study), summary=summary(optimum, window, sweep, report.errors()))
     index = out / "index.html"
     write_atomic(index, html)
     return index
@@ -192,10 +193,14 @@ def _network_context(study, net, report) -> dict:
     species = [{"symbol": s.symbol, "label": s.label, "formula": s.formula or "", "Cp": fmt(s.Cp) if s.Cp else "",
                 "feed": (f"{inlet[s.symbol] / 1000:.4g} mol/L" if study.feed.phase == "liquid" else
                          f"y = {inlet[s.symbol]:.4g}") if inlet.get(s.symbol) else ""} for s in study.species]
-    reactions = [{"id": r.id, "equation": r.equation, "law": r.law.name,
-                  "orders": ", ".join(f"{s}: {n:g}" for s, n in r.orders),
-                  "k": f"{math.exp(r.k.ln_k_ref):.4g}", "T_ref": fmt(r.k.T_ref), "Ea": fmt(r.k.Ea / 1000),
-                  "dH": fmt(r.dH / 1000) if r.dH is not None else ""} for r in study.reactions]
+    reactions = []
+    for r in study.reactions:
+        k, k_unit = rate_constant_from_si(math.exp(r.k.ln_k_ref), r.k_power, r.k_unit)
+        constants = "; ".join(f"{path} = {v:.4g} {unit}".rstrip() for path, v, unit in r.law.constant_table())
+        reactions.append({"id": r.id, "equation": r.equation, "law": r.law.name,
+                          "orders": ", ".join(f"{s}: {n:g}" for s, n in r.orders),
+                          "k": f"{k:.4g} {k_unit}", "T_ref": fmt(r.k.T_ref), "Ea": fmt(r.k.Ea / 1000),
+                          "dH": fmt(r.dH / 1000) if r.dH is not None else "", "constants": constants})
     matrix = [{"species": s, "values": [f"{v:g}" for v in row]} for s, row in zip(net.species, net.matrix)]
     return {"species": species, "reactions": reactions, "matrix": matrix, "reaction_ids": net.reaction_ids,
             "rank": net.rank, "independent": ", ".join(net.independent_reactions()),

@@ -18,10 +18,11 @@ def _quantity(value, unit: str, digits: int = 4) -> str:
     return f"{fmt(value, digits)} {unit}".rstrip() if value is not None else "-"
 
 
-def summary(optimum: dict | None, window=None, sweep: dict | None = None) -> dict:
+def summary(optimum: dict | None, window=None, sweep: dict | None = None, network_errors=()) -> dict:
     """{"headline", "point": [(decision, value)], "limits": [{text, value, margin, binding, marginal, holds}],
-    "verification", "robustness", "stops": [reasons a reviewer should not accept the point as it stands]}."""
-    stops: list[str] = []
+    "verification", "robustness", "stops": [reasons a reviewer should not accept the point as it stands]}.
+    `network_errors` are the network check's errors (a network that cannot conserve mass is a stop)."""
+    stops: list[str] = [f"NETWORK CHECK: {e}" for e in network_errors]
     out = {"headline": "", "point": [], "limits": [], "verification": "", "robustness": "", "stops": stops}
     if not optimum:
         out["headline"] = "No optimization result was saved: run `tubeyield optimize STUDY --save DIR`."

@@ -222,3 +222,47 @@ def sweep_summary(summary: dict) -> str:
         out.append(f"  {rb['text']}")
     out += ["", CAUTION]
     return "\n".join(out)
+
+
+def fit_summary(result) -> str:
+    """The fit for the terminal: status, parameters with standard errors and 95 % intervals, residual statistics,
+    correlations, verification."""
+    out = [f"{result.study}: fit {result.status}" + (f"  {result.message}" if result.message else "")]
+    if not result.parameters:
+        return "\n".join(out)
+    width = max(len(p.path) for p in result.parameters)
+    out.append(f"  {'parameter':<{width}}  {'estimate':>11}  {'std. error':>10}  95 % interval")
+    for p in result.parameters:
+        se = fmt(p.se, 3) if p.se is not None else "-"
+        ci = f"{fmt(p.low, 4)} to {fmt(p.high, 4)}" if p.low is not None else "-"
+        flag = "  (at its bound)" if p.at_bound else ""
+        out.append(f"  {p.path:<{width}}  {fmt(p.value, 6):>11}  {se:>10}  {ci} {p.unit}{flag}")
+    out.append(f"  rate constants at each reaction's T_ref; estimated as ln k at T_c = {result.T_centre:.2f} K "
+               "and Ea (centred Arrhenius)")
+    dof = f"{result.n_data} values, {result.dof} degrees of freedom"
+    if result.chi_square is not None:
+        from scipy import stats
+        p_value = float(stats.chi2.sf(result.chi_square, result.dof))
+        out.append(f"  weighted SSR (chi-square) {fmt(result.chi_square, 5)}, {dof}, P(chi2 > SSR) = {p_value:.3g}")
+    else:
+        out.append(f"  SSR {fmt(result.ssr, 6)} (mol/L)^2, {dof}; estimated standard deviation "
+                   f"{fmt(result.sigma, 4)} mol/L")
+    if result.correlation and len(result.correlation) > 1:
+        names = [p.path.split(".", 1)[1] for p in result.parameters]
+        pairs = [(abs(result.correlation[i][j]), names[i], names[j], result.correlation[i][j])
+                 for i in range(len(names)) for j in range(i)]
+        top = max(pairs)
+        out.append(f"  largest correlation {top[3]:+.3f} ({top[1]}, {top[2]})")
+    for e in result.experiments:
+        out.append(f"  experiment {e['id']}: {e['vessel']} at {e['T']:.2f} K, {e['samples']} values, "
+                   f"SSR {fmt(e['ssr'], 4)}")
+    c = result.check
+    if c:
+        out.append(f"  re-simulated ({c['integrator']}): largest difference {c['max_rel_difference']:.1e} of the "
+                   f"largest start concentration (tolerance {c['tolerance']:.0e}), "
+                   f"{'passed' if c['passed'] else 'NOT passed'}, {c['elements_per_interval']} element(s) per "
+                   "sampling interval")
+    for w in result.warnings:
+        out.append(f"  warning: {w}")
+    out.append(CAUTION)
+    return "\n".join(out)

@@ -120,7 +120,7 @@ def bound_reports(model: ReactorModel) -> list[BoundReport]:
         rcs = [model.m.rc.get(v, 0.0) or 0.0 for v in datas]
         unit_label = _per(model, name, d.unit)
         if h.fixed:
-            per_si = sum(rcs) * model.goal_scale / h.scale
+            per_si = sum(rcs) * model.goal_scale / h.scale if abs(sum(rcs)) > ACTIVE_DUAL else 0.0
             out.append(BoundReport(name, "fixed", decision_to_user(d.low, d), d.unit, _goal_to_display(model, per_si) * step,
                                    unit_label))
             continue

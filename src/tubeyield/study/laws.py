@@ -27,7 +27,7 @@ from typing import Callable, ClassVar, Mapping
 from tubeyield.errors import StudyError
 from tubeyield.study.kinetics import VantHoff, concentration_product
 from tubeyield.study.toml import Table, number
-from tubeyield.study.units import rate_constant_to_si, to_si
+from tubeyield.study.units import QUANTITY_KINDS, rate_constant_to_si, to_si
 
 
 @dataclass(frozen=True)
@@ -91,6 +91,34 @@ class RateLaw:
     def describe(self) -> str:
         """The rate law in words for `check` (the forward orders are shown beside it)."""
         return self.name
+
+    def constant_table(self) -> list[tuple[str, float, str]]:
+        """The law's constants at T_ref as (sweep path, value, unit) for reports: concentration powers in mol/L,
+        energies in kJ/mol (from paths(), so a new law's constants are shown without more code)."""
+        values = self.constants()
+        out = []
+        for path, p in self.paths().items():
+            v = values[p.constant]
+            if p.log:
+                v = math.exp(v)
+            if p.kind == "constant":
+                out.append((path, v * 1e-3 ** (p.power or 0.0), concentration_unit(p.power or 0.0)))
+            elif p.kind == "molar_energy":
+                out.append((path, v / 1000.0, "kJ/mol"))
+            else:
+                out.append((path, v, QUANTITY_KINDS[p.kind][0]))
+        return out
+
+
+def concentration_unit(power: float) -> str:
+    """(mol/L)^power written as an engineer would: '', 'mol/L', 'L/mol', '(mol/L)^0.5'."""
+    if power == 0:
+        return ""
+    if power == 1:
+        return "mol/L"
+    if power == -1:
+        return "L/mol"
+    return f"(mol/L)^{power:g}"
 
 
 # ------------------------------------------------------------------------------------------------------------ laws

@@ -15,6 +15,7 @@ from tubeyield.errors import StudyError
 from tubeyield.study.read_goal import read_front, read_goal, read_numerics, read_window
 from tubeyield.study.read_network import merge_unique, read_reactions, read_species, resolve_reaction
 from tubeyield.study.read_operation import read_feed, read_operate, read_reactor
+from tubeyield.study.read_fit import read_experiments, read_fit
 from tubeyield.study.read_sweep import read_sweep
 from tubeyield.study import caps
 from tubeyield.study.kinetics import GAS_CONSTANT
@@ -22,7 +23,7 @@ from tubeyield.study.schema import Feed, Reactor, SourceFile, Species, Study
 from tubeyield.study.toml import Table, parse_toml, read_text
 
 NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9 _.+()-]{0,99}$")
-OPTIONAL_SECTIONS = ("front", "window", "sweep")
+OPTIONAL_SECTIONS = ("front", "window", "sweep", "fit")
 
 
 def load_study(path, *, need=OPTIONAL_SECTIONS) -> Study:
@@ -61,7 +62,8 @@ def study_from_sources(document: str, *, need=OPTIONAL_SECTIONS) -> Study:
     return study_from_text(text, path=Path(name).name, includes=dict(includes), need=need)
 
 
-TOP_KEYS = ("study", "species", "reaction", "feed", "reactor", "operate", "goal", "front", "window", "sweep", "numerics")
+TOP_KEYS = ("study", "species", "reaction", "feed", "reactor", "operate", "goal", "front", "window", "sweep", "numerics",
+            "experiment", "fit")
 
 
 class _IncludesOnDisk:
@@ -70,24 +72,23 @@ class _IncludesOnDisk:
     def __init__(self, study_path: Path):
         self.folder = study_path.parent
 
-    def __call__(self, ref: str) -> tuple[str, str]:
+    def __call__(self, ref: str, key: str = "study.include", what: str = "network file") -> tuple[str, str]:
         """(the file's path for messages, its text)."""
         rel = Path(ref)
         if rel.is_absolute() or ".." in rel.parts or "\0" in ref or not ref.strip():
-            raise StudyError("study.include", f"a network file path relative to the study's folder, without '..'; "
-                                              f"got {ref!r}")
+            raise StudyError(key, f"a {what} path relative to the study's folder, without '..'; got {ref!r}")
         target = self.folder / rel
         try:
             inside = target.resolve().is_relative_to(self.folder.resolve())
         except OSError:
             inside = False
         if not inside:
-            raise StudyError("study.include", f"a network file inside the study's folder; {ref!r} leads outside it "
-                                              "(a link?): copy the network next to the study")
+            raise StudyError(key, f"a {what} inside the study's folder; {ref!r} leads outside it (a link?): copy "
+                                  "it next to the study")
         if not target.is_file():
-            raise StudyError("study.include", f"an existing network file; {ref!r} "
-                                              + ("is a folder" if target.is_dir() else "does not exist"))
-        return str(target), read_text(target, "network file")
+            raise StudyError(key, f"an existing {what}; {ref!r} " + ("is a folder" if target.is_dir() else
+                                                                     "does not exist"))
+        return str(target), read_text(target, what)
 
 
 def _read_includes(include, reader) -> list[tuple[str, str, str]]:
@@ -186,6 +187,31 @@ def study_from_dict(doc: dict, *, path: str = "", source: str = "", includes=Non
             deferred.append((section, exc))
             return None
 
+    data_files: list[SourceFile] = []
+
+    def read_data(ref: str, key: str) -> tuple[str, str]:
+        if includes is None:
+            raise StudyError(key, "a study read from a file (measurement files are relative to its folder)")
+        if isinstance(includes, dict):
+            if ref not in includes:
+                raise StudyError(key, f"the text of the measurement file {ref!r}; it is missing")
+            where, text = ref, includes[ref]
+        else:
+            where, text = includes(ref, key, "measurement file")
+        if all(f.ref != ref for f in data_files):
+            data_files.append(SourceFile(ref, text))
+        return where, text
+
+    def read_lab():
+        runs = read_experiments(top.take("experiment", [], types=list, what="[[experiment]] entries"), symbols,
+                                read_data)
+        for e in runs:
+            if e.vessel == "plug" and feed.phase == "gas":
+                raise StudyError(f"experiment.{e.id}.vessel", "'batch', or 'plug' for a liquid study only (a gas "
+                                                              "changes volume as it reacts; not fitted yet)")
+        return runs, read_fit(top.table("fit", None), tuple(reactions), runs, symbols)
+
+    experiments, fit = optional("fit", read_lab) or ((), None)
     front = optional("front", lambda: read_front(top.table("front", None), symbols))
     window = optional("window", lambda: read_window(top.table("window", None), decisions))
     top.close(TOP_KEYS)
@@ -197,7 +223,8 @@ def study_from_dict(doc: dict, *, path: str = "", source: str = "", includes=Non
         raise exc.in_file(files.get(exc.key.split(".")[1]) or path) from None
     study = Study(name=name, species=tuple(species), reactions=tuple(reactions), feed=feed, reactor=reactor,
                   decisions=tuple(decisions), goal=goal, front=front, window=window, numerics=numerics,
-                  description=description, path=path, source=source, includes=tuple(sources))
+                  experiments=experiments, fit=fit,
+                  description=description, path=path, source=source, includes=tuple(sources + data_files))
     sweep = optional("sweep", lambda: read_sweep(top.table("sweep", None), study))
     return replace(study, sweep=sweep, section_errors=tuple(deferred))
 

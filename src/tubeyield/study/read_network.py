@@ -12,7 +12,7 @@ from tubeyield.study.kinetics import GAS_CONSTANT, Arrhenius
 from tubeyield.study.laws import LAW_KEYS, LAWS, LawContext
 from tubeyield.study.schema import Reaction, Species
 from tubeyield.study.toml import Table, number
-from tubeyield.study.units import rate_constant_to_si, to_si
+from tubeyield.study.units import rate_constant_to_si, to_si, unit_text
 
 
 def read_species(data: dict, path: str) -> list[Species]:
@@ -118,6 +118,7 @@ def resolve_reaction(raw, symbols: set[str], index: int) -> Reaction:
     has_k, has_A = t.has("k"), t.has("A")
     if has_k == has_A:
         raise StudyError(t.key("k"), "either k (rate constant at T_ref) or A (pre-exponential factor), exactly one")
+    k_unit = unit_text(t.data["k"] if has_k else t.data["A"])
     if has_k:
         k = rate_constant_to_si(t.take("k"), law_cls.k_power(total), t.key("k"))
         if k <= 0:
@@ -142,7 +143,7 @@ def resolve_reaction(raw, symbols: set[str], index: int) -> Reaction:
     t.take("id"), t.take("label", "")
     t.close(_REACTION_KEYS)
     return Reaction(id=raw.id, equation=eq_text, reactants=eq.reactants, products=eq.products, orders=orders,
-                    k=rate, law=law, dH=dH_si)
+                    k=rate, law=law, dH=dH_si, k_unit=k_unit)
 
 
 def _orders(t: Table, name: str, default: dict[str, float], symbols: set[str]) -> tuple[tuple[str, float], ...]:

@@ -32,6 +32,7 @@ class Reaction:
     k: Arrhenius                               # forward rate constant k(T)
     law: RateLaw = PowerLaw()                  # the rate law (study/laws.py): its own keys and constants
     dH: float | None = None                    # heat of reaction at T_ref, J per mol of reaction as written
+    k_unit: str = ""                           # the unit the study gave k (or A) in, for reports ('' = SI)
 
     @property
     def reversible(self) -> bool:
@@ -191,6 +192,30 @@ class SourceFile:
 
 
 @dataclass(frozen=True)
+class Experiment:
+    """One lab run: a batch (times) or a liquid plug-flow run (residence times), at one temperature, from known
+    start (or inlet) concentrations, with its measurements (SI; NaN where a species was not sampled)."""
+    id: str
+    vessel: str                                       # "batch" or "plug"
+    T: float                                          # K
+    start: tuple[tuple[str, float], ...]              # species -> mol/m^3 at time zero / the inlet
+    times: tuple[float, ...]                          # s, increasing
+    series: tuple[tuple[str, tuple[float, ...]], ...]  # species -> mol/m^3 at each time
+    data: str = ""                                    # the measurement file as the study names it
+
+
+@dataclass(frozen=True)
+class FitSpec:
+    """[fit]: the parameter paths to estimate, their optional SI bounds, the measurement error model
+    (species -> (absolute sd in mol/m^3, relative sd); empty: one common sd estimated from the residuals) and the
+    collocation elements per sampling interval."""
+    estimate: tuple[str, ...]
+    bounds: tuple[tuple[str, tuple[float, float]], ...] = ()
+    error: tuple[tuple[str, tuple[float, float]], ...] = ()
+    elements: int = 4
+
+
+@dataclass(frozen=True)
 class Study:
     name: str
     species: tuple[Species, ...]
@@ -203,6 +228,8 @@ class Study:
     window: WindowSpec | None = None
     sweep: SweepSpec | None = None
     numerics: Numerics = field(default_factory=Numerics)
+    experiments: tuple[Experiment, ...] = ()
+    fit: FitSpec | None = None
     description: str = ""
     path: str = ""
     source: str = ""              # the study text as read, for reports that reproduce

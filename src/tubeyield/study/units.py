@@ -123,6 +123,18 @@ def rate_constant_to_si(value, concentration_power: float, key: str, *, per: str
     return _clean(float(ratio.magnitude))
 
 
+def rate_constant_from_si(si_value: float, concentration_power: float, user_unit: str) -> tuple[float, str]:
+    """(value, unit) of an SI rate constant of unit concentration^power/time in the user's unit text ('' keeps SI,
+    written out: 1/s, m^3/(mol*s), ...)."""
+    if not user_unit:
+        p = concentration_power
+        unit = ("1/s" if p == 0 else "mol/(m^3*s)" if p == 1 else "m^3/(mol*s)" if p == -1
+                else f"(mol/m^3)^{_pretty_power(p)}/s")
+        return si_value, unit
+    si = ((ureg.mol / ureg.m**3) ** concentration_power) / ureg.s
+    return float(Quantity(si_value, si).to(_unit(user_unit)).magnitude), user_unit
+
+
 def _pretty_power(p: float) -> str:
     return str(int(p)) if float(p).is_integer() else f"{p:g}"
 
