@@ -57,3 +57,18 @@ def test_a_network_that_fails_its_check_is_a_stop():
     out = summary(_optimum(), network_errors=["stoichiometrically inconsistent: back, surface"])
     assert any(s.startswith("NETWORK CHECK:") and "back, surface" in s for s in out["stops"])
     assert not summary(_optimum())["stops"]
+
+
+class _Window:
+    def __init__(self, holds):
+        import numpy as np
+        self.window = np.array(holds, dtype=bool)
+
+
+def test_an_empty_window_map_around_a_verified_optimum_is_a_note_not_a_stop():
+    empty = _Window([[False] * 14] * 12)
+    s = summary(_optimum(), empty)
+    assert s["stops"] == [] and "14 x 12 window map" in s["window_note"] and "narrower than one cell" in s["window_note"]
+    s = summary(_optimum("unverified", message="the re-simulation differs"), empty)
+    assert "the window map has no cell where every limit holds" in s["stops"] and not s["window_note"]
+    assert not summary(_optimum(), _Window([[True, False]]))["window_note"]

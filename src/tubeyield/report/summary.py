@@ -23,7 +23,8 @@ def summary(optimum: dict | None, window=None, sweep: dict | None = None, networ
     "verification", "robustness", "stops": [reasons a reviewer should not accept the point as it stands]}.
     `network_errors` are the network check's errors (a network that cannot conserve mass is a stop)."""
     stops: list[str] = [f"NETWORK CHECK: {e}" for e in network_errors]
-    out = {"headline": "", "point": [], "limits": [], "verification": "", "robustness": "", "stops": stops}
+    out = {"headline": "", "point": [], "limits": [], "verification": "", "robustness": "", "window_note": "",
+           "stops": stops}
     if not optimum:
         out["headline"] = "No optimization result was saved: run `tubeyield optimize STUDY --save DIR`."
         stops.append("there is no verified operating point in this report")
@@ -105,6 +106,15 @@ def summary(optimum: dict | None, window=None, sweep: dict | None = None, networ
         out["robustness"] = "Sweep: " + "; ".join(parts) + "." if parts else ""
     if window is not None:
         share = float(window.window.mean())
-        if share == 0.0:
+        point_holds = status == st.OPTIMAL and all(lim.get("holds", True) for lim in out["limits"])
+        if share == 0.0 and point_holds:
+            # the optimum meets every limit, so the window exists: it is narrower than the map's cells (an optimum
+            # on two active limits leaves a sliver along their edges)
+            cells = window.window.shape
+            out["window_note"] = (f"No cell of the {cells[1]} x {cells[0]} window map meets every limit: around the "
+                                  "optimum (which meets them) the window is narrower than one cell. A finer [window] "
+                                  "grid or narrower ranges show its extent; with so little room, small changes in "
+                                  "the inputs can break a limit.")
+        elif share == 0.0:
             stops.append("the window map has no cell where every limit holds")
     return out
