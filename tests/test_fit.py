@@ -125,6 +125,26 @@ def test_arrhenius_fit_at_three_temperatures_agrees_with_scipy(tmp_path):
     c298 = G @ cov[:2, :2] @ G.T
     far = c298[0, 1] / math.sqrt(c298[0, 0] * c298[1, 1])
     assert abs(far) > 0.95 and abs(result.correlation[0][1]) < 0.7
+    # profile likelihood of Ea (first), recomputed by scipy: the other three parameters re-fitted at each fixed Ea,
+    # the ends where SSR = SSR_min (1 + F(1, N - p; 0.95) / (N - p)) (Bates and Watts 1988, ch. 6), by brentq
+    from scipy.optimize import brentq
+    from scipy.stats import f
+    d = data()
+    N = 2 * TIMES.size * len(TEMPS)
+    level = ssr * (1 + f.ppf(0.95, 1, N - 4) / (N - 4))
+
+    def profile(E):
+        def res(q):
+            return np.concatenate([(exact(T, math.exp(q[0]), math.exp(q[1]), 1e3 * E, 1e3 * q[2]) - d[T]).ravel()
+                                   for T in TEMPS])
+        r = least_squares(res, [x[0], x[2], x[3]], method="lm", xtol=1e-14, ftol=1e-14, gtol=1e-14)
+        return float(r.fun @ r.fun) - level
+
+    se = math.sqrt(cov[1, 1])
+    low, high = brentq(profile, x[1] - 5 * se, x[1]), brentq(profile, x[1], x[1] + 5 * se)
+    half = 0.5 * (high - low)
+    q = p["reaction.first.Ea"]
+    assert q.profile_low == pytest.approx(low, abs=0.01 * half) and q.profile_high == pytest.approx(high, abs=0.01 * half)
     assert result.T_centre == pytest.approx(3 / sum(1 / T for T in TEMPS))
 
 

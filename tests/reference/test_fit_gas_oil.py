@@ -95,6 +95,11 @@ def test_gas_oil_optimum_and_standard_errors(result):
         assert p.low < theta < p.high and p.low > 0          # intervals in ln k stay positive
     assert result.check["passed"]
     assert not result.not_identified
+    # profile-likelihood intervals close on both sides and hold the estimate; for theta3, which the data fix
+    # weakly, the profile interval departs from the linearized one, and the fit says so
+    for p in result.parameters:
+        assert p.profile_low is not None and p.profile_low < p.value < p.profile_high
+    assert any("reaction.A_to_C.k" in w and "profile-likelihood" in w for w in result.warnings)
     # s = sqrt(SSR / dof), in the data's unit
     assert result.sigma == pytest.approx(math.sqrt(5.236596e-3 / 37), rel=1e-5)
 

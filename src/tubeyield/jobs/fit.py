@@ -52,6 +52,8 @@ class FitParameter:
     low: float | None         # 95 % interval (t-based, in ln k for rate constants)
     high: float | None
     at_bound: bool = False
+    profile_low: float | None = None     # 95 % profile-likelihood interval (None: open on that side)
+    profile_high: float | None = None
 
     def to_dict(self) -> dict:
         return dict(self.__dict__)
@@ -368,8 +370,118 @@ def fit(study: Study, *, solver=None, tee: bool = False) -> FitResult:
     t = time.perf_counter()
     out = _statistics(study, coords, x, bounds, check, timing)
     timing["statistics"] = time.perf_counter() - t
+    if out.parameters and out.ssr is not None:
+        t = time.perf_counter()
+        _profile_intervals(study, coords, m, solver, float(pyo.value(m.ssr)), out)
+        timing["profiles"] = time.perf_counter() - t
     timing["total"] = time.perf_counter() - t0
     return out
+
+
+# ------------------------------------------------------------------------------------------ profile likelihood
+
+
+PROFILE_BISECTIONS = 9         # halvings of the bracket: the end is found to 1/512 of its first step
+
+
+def _profile_intervals(study, coords, m, solver, ssr_min: float, out: FitResult) -> None:
+    """95 % profile-likelihood intervals: for each reported parameter, the values where the SSR, minimized over the
+    other parameters, crosses ssr_min (1 + F(1, N - p; 0.95) / (N - p)) (error estimated) or ssr_min + chi2(1; 0.95)
+    (error known) (Bates and Watts 1988, ch. 6; Venzon and Moolgavkar, Appl. Statist. 37 (1988) 87, for the
+    profile idea). The parameter is held by an equality on its linear function of the coordinates (ln k at the
+    reaction's own T_ref, or Ea), whose right-hand side is a pinned variable, so each point re-solves the built
+    NLP warm. Sets p.profile_low / p.profile_high (None where the SSR stays below the threshold up to a bound) and
+    warns where they differ from the linearized interval by more than 20 % of its half-width."""
+    import pyomo.environ as pyo
+    from scipy import stats
+
+    from tubeyield.solve import OK_CONDITIONS
+    known = out.chi_square is not None
+    level = (ssr_min + float(stats.chi2.ppf(0.95, 1))) if known else \
+        ssr_min * (1.0 + float(stats.f.ppf(0.95, 1, out.dof)) / out.dof)
+    x_opt = [pyo.value(m.x[i]) for i in range(len(coords.paths))]
+    m.target = pyo.Var(initialize=0.0)
+    for p, g, to_user, lin in _reported(study, coords, out):
+        value0 = float(sum(gi * xi for gi, xi in zip(g, x_opt)))
+        m.target.setlb(value0)
+        m.target.setub(value0)
+        m.hold = pyo.Constraint(expr=sum(float(gi) * m.x[i] for i, gi in enumerate(g) if gi) == m.target)
+
+        written = []            # the first solve after adding the constraint writes the model anew
+
+        def ssr_at(v):
+            m.target.setlb(v)
+            m.target.setub(v)
+            res = solver.solve(m, warmstart=bool(written), reuse_structure=bool(written))
+            written.append(v)
+            if res.solver.termination_condition not in OK_CONDITIONS:
+                return None
+            return float(pyo.value(m.ssr))
+
+        ends = []
+        step0 = lin if lin and lin > 0 else 0.1 * max(1.0, abs(value0))
+        for side in (-1.0, 1.0):
+            for i, v in enumerate(x_opt):
+                m.x[i].set_value(v, skip_validation=True)
+            inside, outside, step = 0.0, None, step0
+            for _ in range(8):                       # expand until the SSR passes the level
+                s = ssr_at(value0 + side * step)
+                if s is None:
+                    break
+                if s > level:
+                    outside = step
+                    break
+                inside, step = step, 2.0 * step
+            if outside is None:
+                ends.append(None)
+                continue
+            for _ in range(PROFILE_BISECTIONS):
+                mid = 0.5 * (inside + outside)
+                s = ssr_at(value0 + side * mid)
+                if s is None:
+                    break
+                if s > level:
+                    outside = mid
+                else:
+                    inside = mid
+            ends.append(value0 + side * 0.5 * (inside + outside))
+        m.del_component(m.hold)
+        low, high = (to_user(e) if e is not None else None for e in ends)
+        p.profile_low, p.profile_high = low, high
+        if p.low is not None and low is not None and high is not None:
+            half = 0.5 * (p.high - p.low)
+            if max(abs(low - p.low), abs(high - p.high)) > 0.2 * half:
+                out.warnings.append(f"{p.path}: the profile-likelihood interval ({low:.4g} to {high:.4g}) differs "
+                                    f"from the linearized one ({p.low:.4g} to {p.high:.4g}): the model is far "
+                                    "from linear in this parameter; trust the profile interval")
+        elif low is None or high is None:
+            out.warnings.append(f"{p.path}: the profile-likelihood interval could not be closed on one side (the SSR "
+                                "stays below the 95 % level up to the parameter's bound, or a re-solve failed)")
+    m.del_component(m.target)
+
+
+def _reported(study, coords, out: FitResult):
+    """(parameter, gradient g of its estimation value in the coordinates, value -> user units, linearized SE of
+    that value) for each reported parameter: ln k at the reaction's T_ref, or Ea in kJ/mol."""
+    P = len(coords.paths)
+    for i, p in enumerate(out.parameters):
+        rid, name = p.path.split(".")[1:]
+        g = np.zeros(P)
+        if name == "Ea":
+            g[i] = 1.0
+            yield p, g, float, p.se
+            continue
+        rx = study.reaction(rid)
+        a = -1.0 / GAS_CONSTANT * (1.0 / rx.k.T_ref - 1.0 / coords.T_c)
+        g[i] = 1.0
+        ea = f"reaction.{rid}.Ea"
+        if ea in coords.paths:
+            g[coords.paths.index(ea)] = 1000.0 * a
+        const = 0.0 if ea in coords.paths else a * rx.k.Ea
+
+        def to_user(v, rx=rx, const=const):
+            return rate_constant_from_si(math.exp(v + const), rx.k_power, rx.k_unit)[0]
+        yield p, g, to_user, (p.se / p.value if p.se is not None and p.value else None)
 
 
 def _statistics(study, coords, x, bounds, check, timing) -> FitResult:

@@ -231,12 +231,15 @@ def fit_summary(result) -> str:
     if not result.parameters:
         return "\n".join(out)
     width = max(len(p.path) for p in result.parameters)
-    out.append(f"  {'parameter':<{width}}  {'estimate':>11}  {'std. error':>10}  95 % interval")
+    out.append(f"  {'parameter':<{width}}  {'estimate':>11}  {'std. error':>10}  {'95 % linearized':<22}  "
+               "95 % profile likelihood")
     for p in result.parameters:
         se = fmt(p.se, 3) if p.se is not None else "-"
         ci = f"{fmt(p.low, 4)} to {fmt(p.high, 4)}" if p.low is not None else "-"
+        pl = (f"{fmt(p.profile_low, 4) if p.profile_low is not None else 'open'} to "
+              f"{fmt(p.profile_high, 4) if p.profile_high is not None else 'open'}")
         flag = "  (at its bound)" if p.at_bound else ""
-        out.append(f"  {p.path:<{width}}  {fmt(p.value, 6):>11}  {se:>10}  {ci} {p.unit}{flag}")
+        out.append(f"  {p.path:<{width}}  {fmt(p.value, 6):>11}  {se:>10}  {ci:<22}  {pl} {p.unit}{flag}")
     out.append(f"  rate constants at each reaction's T_ref; estimated as ln k at T_c = {result.T_centre:.2f} K "
                "and Ea (centred Arrhenius)")
     dof = f"{result.n_data} values, {result.dof} degrees of freedom"
