@@ -111,3 +111,9 @@ def test_the_python_api_fits_the_same_and_gives_a_table(result):
     table = again.to_frame()
     assert list(table["path"]) == [p.path for p in first.parameters]
     assert table["value"].tolist() == pytest.approx([p.value for p in first.parameters], rel=1e-9)
+
+
+def test_the_fitted_values_are_saved_in_si_for_the_study_paths(result):
+    result, _ = result
+    assert result.values_si == pytest.approx({"reaction.to_B.k": 11.8467e-3, "reaction.B_to_C.k": 8.3445,
+                                              "reaction.A_to_C.k": 1.0014e-3}, rel=2e-4)   # L/(mol s) -> m^3/(mol s)

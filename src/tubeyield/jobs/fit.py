@@ -75,6 +75,7 @@ class FitResult:
     T_centre: float
     check: dict
     experiments: list[dict]
+    values_si: dict = field(default_factory=dict)    # path -> SI value (k at the reaction's T_ref, Ea in J/mol)
     timing: dict = field(default_factory=dict)
     message: str = ""
     warnings: list[str] = field(default_factory=list)
@@ -556,15 +557,24 @@ def _statistics(study, coords, x, bounds, check, timing) -> FitResult:
         per_exp.append({"id": e.id, "vessel": e.vessel, "T": e.T, "samples": n,
                         "ssr": float(res[k:k + n] @ res[k:k + n])})
         k += n
+    values_si = {}
+    for i, p in enumerate(coords.paths):
+        rid, name = p.split(".")[1:]
+        if name == "Ea":
+            values_si[p] = 1000.0 * float(x[i])
+        else:
+            rx = study.reaction(rid)
+            values_si[p] = math.exp(x[i] - coords.Ea(rid, x) / GAS_CONSTANT * (1.0 / rx.k.T_ref - 1.0 / T))
     status = st.OPTIMAL if check.get("passed") and not not_identified else st.UNVERIFIED
     message = "" if status == st.OPTIMAL else "NOT VERIFIED: " + "; ".join(
         (["the re-simulation differs by %.2e" % check.get("max_rel_difference", float("nan"))]
          if not check.get("passed") else []) + (["parameters not identifiable"] if not_identified else []))
     sigma = math.sqrt(ssr / dof) if not known else None      # mol/L: the residuals are in units of 1 mol/L
     return FitResult(status, study.name, params, ssr, N, dof, sigma, ssr if known else None, corr,
-                     [float(v) for v in sv], not_identified, T, check, per_exp, timing, message, warnings)
+                     [float(v) for v in sv], not_identified, T, check, per_exp, values_si, timing, message, warnings)
 
 
 def _failed(study, coords, message, timing) -> FitResult:
-    return FitResult(st.FAILED, study.name, [], None, 0, 0, None, None, [], [], [], coords.T_c, {}, [], timing,
+    return FitResult(st.FAILED, study.name, [], None, 0, 0, None, None, [], [], [], coords.T_c, {}, [], {}, timing,
                      message)
+
