@@ -72,3 +72,12 @@ def test_an_empty_window_map_around_a_verified_optimum_is_a_note_not_a_stop():
     s = summary(_optimum("unverified", message="the re-simulation differs"), empty)
     assert "the window map has no cell where every limit holds" in s["stops"] and not s["window_note"]
     assert not summary(_optimum(), _Window([[True, False]]))["window_note"]
+
+
+def test_a_fit_that_does_not_determine_its_parameters_is_a_stop():
+    fit = {"status": "unverified", "message": "NOT VERIFIED: parameters not identifiable",
+           "not_identified": ["reaction.one.k and reaction.two.k"], "parameters": []}
+    s = summary(_optimum(), fit=fit)
+    assert any("do not determine reaction.one.k and reaction.two.k" in x for x in s["stops"])
+    good = {"status": "optimal", "not_identified": [], "parameters": [{"path": "reaction.one.k", "at_bound": True}]}
+    assert summary(_optimum(), fit=good)["stops"] == ["FIT: reaction.one.k ended at its bound"]

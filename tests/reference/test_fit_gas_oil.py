@@ -117,3 +117,19 @@ def test_the_fitted_values_are_saved_in_si_for_the_study_paths(result):
     result, _ = result
     assert result.values_si == pytest.approx({"reaction.to_B.k": 11.8467e-3, "reaction.B_to_C.k": 8.3445,
                                               "reaction.A_to_C.k": 1.0014e-3}, rel=2e-4)   # L/(mol s) -> m^3/(mol s)
+
+
+def test_fit_save_and_report_show_the_kinetics(result, tmp_path):
+    import subprocess
+    import sys
+    _, path = result
+    out, rep = tmp_path / "out", tmp_path / "rep"
+    r = subprocess.run([sys.executable, "-m", "tubeyield", "fit", str(path), "--save", str(out)], capture_output=True,
+                       text=True, timeout=300)
+    assert r.returncode == 0, r.stderr
+    r = subprocess.run([sys.executable, "-m", "tubeyield", "report", str(out), "--out", str(rep)],
+                       capture_output=True, text=True, timeout=300)
+    assert r.returncode == 0, r.stderr
+    html = (rep / "index.html").read_text()
+    assert 'id="kinetics"' in html and "95 % profile likelihood" in html and "reaction.A_to_C.k" in html
+    assert (rep / "figures" / "fit.png").stat().st_size > 1000 and (out / "inputs" / "gas-oil.csv").is_file()

@@ -76,6 +76,7 @@ class FitResult:
     check: dict
     experiments: list[dict]
     values_si: dict = field(default_factory=dict)    # path -> SI value (k at the reaction's T_ref, Ea in J/mol)
+    curves: list = field(default_factory=list)       # per experiment: data and the fitted curves (s, mol/L)
     timing: dict = field(default_factory=dict)
     message: str = ""
     warnings: list[str] = field(default_factory=list)
@@ -375,7 +376,31 @@ def fit(study: Study, *, solver=None, tee: bool = False) -> FitResult:
         t = time.perf_counter()
         _profile_intervals(study, coords, m, solver, float(pyo.value(m.ssr)), out)
         timing["profiles"] = time.perf_counter() - t
+        out.curves = _curves(coords, x)
     timing["total"] = time.perf_counter() - t0
+    return out
+
+
+def _curves(coords: _Coordinates, x, n: int = 120) -> list[dict]:
+    """For the report: each experiment's fitted samples (after time zero) and its fitted curves on a fine grid
+    (s, mol/L)."""
+    out = []
+    par = coords.par(x)
+    for e in coords.study.experiments:
+        grid = np.linspace(0.0, float(e.times[-1]), n)
+        c = simulate_experiment(coords.study, par, e, times=grid[1:], rtol=1e-8)
+        start = dict(e.start)
+        c = np.hstack([np.array([[start.get(s, 0.0)] for s in coords.study.symbols]), c])
+        at = simulate_experiment(coords.study, par, e)            # at the sampling times, for the parity plot
+        measured = [s for s, _ in e.series]
+        idx = coords.study.symbols.index
+        out.append({"id": e.id, "vessel": e.vessel, "T": e.T, "t": grid.tolist(),
+                    "model": {s: (c[idx(s)] / 1000.0).tolist() for s in measured},
+                    "data": {s: {"t": [t for t, v in zip(e.times, vals) if t > 0 and not math.isnan(v)],
+                                 "c": [v / 1000.0 for t, v in zip(e.times, vals) if t > 0 and not math.isnan(v)],
+                                 "fit": [m / 1000.0 for t, m, v in zip(e.times, at[idx(s)], vals)
+                                         if t > 0 and not math.isnan(v)]}
+                             for s, vals in e.series}})
     return out
 
 

@@ -238,3 +238,41 @@ def histogram_grid(columns: dict, title: str):
         fig.suptitle(title, fontsize=10.5)
         fig.tight_layout()
     return fig
+
+
+def fit_curves(fit: dict, title: str):
+    """Each experiment's samples (markers) and fitted curves (lines), and a parity plot of every sample."""
+    curves = fit.get("curves", [])[:11]
+    n = len(curves) + 1
+    cols = min(3, n)
+    rows = (n + cols - 1) // cols
+    with plt.rc_context(STYLE):
+        fig, axes = plt.subplots(rows, cols, figsize=(3.5 * cols, 2.8 * rows), squeeze=False)
+        measured, fitted = [], []
+        for ax, cv in zip(axes.ravel(), curves):
+            t_end = cv["t"][-1]
+            unit, f = ("min", 60.0) if t_end >= 300.0 else ("s", 1.0)
+            time_name = "residence time" if cv["vessel"] == "plug" else "time"
+            for i, (s, model) in enumerate(cv["model"].items()):
+                colour = PALETTE[i % len(PALETTE)]
+                ax.plot(np.array(cv["t"]) / f, model, color=colour, lw=1.4, label=s)
+                d = cv["data"][s]
+                ax.plot(np.array(d["t"]) / f, d["c"], "o", color=colour, ms=3.5, mfc="white")
+                measured += d["c"]
+                fitted += d["fit"]
+            ax.set_title(f"{cv['id']} ({cv['vessel']}, {cv['T']:.1f} K)", fontsize=8.5)
+            ax.set_xlabel(_label(time_name, unit), fontsize=8)
+            ax.set_ylabel(_label("concentration", "mol/L"), fontsize=8)
+            ax.legend(fontsize=7, frameon=False)
+        ax = axes.ravel()[len(curves)]
+        ax.plot(measured, fitted, "o", color=PALETTE[0], ms=3.5, mfc="white")
+        top = max(measured + fitted + [1e-12])
+        ax.plot([0, top], [0, top], color="0.5", lw=0.8)
+        ax.set_xlabel(_label("measured", "mol/L"), fontsize=8)
+        ax.set_ylabel(_label("fitted", "mol/L"), fontsize=8)
+        ax.set_title("parity: every sample", fontsize=8.5)
+        for extra in axes.ravel()[n:]:
+            extra.axis("off")
+        fig.suptitle(title, fontsize=10.5)
+        fig.tight_layout()
+    return fig

@@ -68,8 +68,12 @@ def build_report(result_dir, out_dir=None) -> Path:
     front = _load_json(saved(result_dir, "front"))
     window_d = _load_json(saved(result_dir, "window"))
     sweep = _load_json(saved(result_dir, "sweep-report"))
-    figs: dict = {}
+    fit = _fit_context(_load_json(saved(result_dir, "fit")))
+    figs: dict = dict.fromkeys(("fit", "profiles", "front", "window", "sweep"))
     tables: dict = {}
+    if fit and fit.get("curves"):
+        figs["fit"] = _inline(figures.save(figures.fit_curves(fit, f"{study.name}: fitted kinetics"),
+                                           fig_dir / "fit"))
 
     if optimum:
         tables["decisions"], tables["limits"] = _optimum_tables(optimum, tab_dir)
@@ -127,7 +131,8 @@ def build_report(result_dir, out_dir=None) -> Path:
                                for k, v in (window.fixed.items() if window else [])) or "none",
         window_share=float(window.window.mean()) if window else 0.0, sweep=sweep,
         points=study.reactor.points, inputs=inputs, provenance=_provenance(),
-        assumptions=_assumptions(study), summary=summary(optimum, window, sweep, report.errors()))
+        assumptions=_assumptions(study), summary=summary(optimum, window, sweep, report.errors(), fit),
+        fit=fit, num=_numbers(fit, sweep))
     index = out / "index.html"
     write_atomic(index, html)
     return index
@@ -185,6 +190,32 @@ def _chosen_front_points(front: dict):
 
 def _window_csv(w, path: Path) -> None:
     write_atomic(path, w.to_frame().to_csv(index=False))
+
+
+def _numbers(fit, sweep) -> dict:
+    """Section numbers for the sections this report holds."""
+    names = ["network"] + (["kinetics"] if fit else []) + ["optimum", "profiles", "front", "window"] + \
+        (["sweep"] if sweep else []) + ["verification", "inputs", "provenance", "cautions"]
+    return {name: i + 1 for i, name in enumerate(names)}
+
+
+def _fit_context(fit: dict | None) -> dict | None:
+    """A saved fit (fit.json) with the lines the template shows: the residual statement, the correlation rows."""
+    if not fit:
+        return None
+    fit = dict(fit)
+    if fit.get("chi_square") is not None:
+        fit["residual"] = f"weighted SSR (chi-square) {fmt(fit['chi_square'], 5)}"
+    elif fit.get("ssr") is not None:
+        fit["residual"] = (f"SSR {fmt(fit['ssr'], 5)} (mol/L)^2, estimated standard deviation "
+                           f"{fmt(fit['sigma'], 4)} mol/L")
+    else:
+        fit["residual"] = "no estimate"
+    names = [p["path"].split(".", 1)[1] for p in fit.get("parameters", [])]
+    fit["names"] = names
+    corr = fit.get("correlation") or []
+    fit["correlation_rows"] = [{"name": n, "values": row} for n, row in zip(names, corr)] if len(names) > 1 else []
+    return fit
 
 
 def _network_context(study, net, report) -> dict:

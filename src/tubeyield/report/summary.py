@@ -18,11 +18,19 @@ def _quantity(value, unit: str, digits: int = 4) -> str:
     return f"{fmt(value, digits)} {unit}".rstrip() if value is not None else "-"
 
 
-def summary(optimum: dict | None, window=None, sweep: dict | None = None, network_errors=()) -> dict:
+def summary(optimum: dict | None, window=None, sweep: dict | None = None, network_errors=(),
+            fit: dict | None = None) -> dict:
     """{"headline", "point": [(decision, value)], "limits": [{text, value, margin, binding, marginal, holds}],
     "verification", "robustness", "stops": [reasons a reviewer should not accept the point as it stands]}.
     `network_errors` are the network check's errors (a network that cannot conserve mass is a stop)."""
     stops: list[str] = [f"NETWORK CHECK: {e}" for e in network_errors]
+    if fit is not None:
+        if fit.get("not_identified"):
+            stops.append("FIT: the data do not determine " + "; ".join(fit["not_identified"])
+                         + " (the kinetics behind this point are not known from the lab runs)")
+        elif fit.get("status") != st.OPTIMAL:
+            stops.append(f"FIT {str(fit.get('status')).upper()}: {fit.get('message') or 'see the kinetics section'}")
+        stops += [f"FIT: {p['path']} ended at its bound" for p in fit.get("parameters", []) if p.get("at_bound")]
     out = {"headline": "", "point": [], "limits": [], "verification": "", "robustness": "", "window_note": "",
            "stops": stops}
     if not optimum:
