@@ -15,6 +15,7 @@ parent and exits when it is gone, so no orphan goes on computing.
 from __future__ import annotations
 
 import concurrent.futures as cf
+import logging
 import multiprocessing
 import os
 import signal
@@ -82,6 +83,28 @@ class LocalExecutor:
         return f"{self.n_workers} local process(es)"
 
 
+class _LostWorkerNoise(logging.Filter):
+    """Drops the client's own reports of what the sweep's driver already handles when a worker dies: a value that
+    could not be gathered from a dead worker ("Couldn't gather ... rescheduling"), and the internal AllExit of an
+    abandoned gather that asyncio reports as "Task exception was never retrieved" with a traceback. The driver
+    counts such a task as lost and resubmits it; the user sees that in one line, not as a traceback."""
+
+    def filter(self, record: logging.LogRecord) -> bool:
+        exc = record.exc_info[1] if record.exc_info else None
+        if exc is not None and type(exc).__name__ == "AllExit":
+            return False
+        text = record.getMessage()
+        return not ("AllExit" in text or text.startswith("Couldn't gather"))
+
+
+def _quiet_client_logs() -> None:
+    noise = _LostWorkerNoise()
+    for name in ("asyncio", "distributed.client"):
+        logger = logging.getLogger(name)
+        if not any(isinstance(f, _LostWorkerNoise) for f in logger.filters):
+            logger.addFilter(noise)
+
+
 class DaskExecutor:
     """A dask.distributed client on an existing scheduler. A task lost with its worker is rerun by the scheduler."""
 
@@ -89,6 +112,7 @@ class DaskExecutor:
 
     def __init__(self, address: str, timeout: float = 30.0):
         from distributed import Client
+        _quiet_client_logs()
         self.client = Client(address, timeout=timeout)
         self.address = address
 
