@@ -51,3 +51,10 @@ def study_from_toml(text: str, name: str = "inline"):
     """A Study from TOML text (for reference checks whose inputs are written in the test)."""
     from tubeyield.study import study_from_dict
     return study_from_dict(tomllib.loads(text), path=f"{name}.toml", source=text)
+
+
+def demo_text() -> str:
+    """The demo study's text without its lab runs and [fit] (which name files under scenarios/lab/): for tests that
+    copy the study elsewhere or build it from text."""
+    text = (SCENARIOS / "oxidation.toml").read_text()
+    return text.split("# Lab runs")[0]

@@ -185,6 +185,10 @@ estimate = ["reaction.one.k", "reaction.two.k"]
     assert result.status != "optimal"
     assert result.not_identified == ["reaction.one.k and reaction.two.k"] or \
         result.not_identified == ["reaction.two.k and reaction.one.k"]
+    # the run that would separate them: measuring a product (B or C) of run1; a hotter or longer run of A alone
+    # cannot, since only the sum acts on A
+    assert len(result.suggestions) == 1 and "measuring B in run run1" in result.suggestions[0] or \
+        "measuring C in run run1" in result.suggestions[0], result.suggestions
 
 
 BAD = [

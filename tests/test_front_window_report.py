@@ -10,7 +10,7 @@ from html.parser import HTMLParser
 import numpy as np
 import pytest
 
-from helpers import SCENARIOS, study_from_toml
+from helpers import SCENARIOS, demo_text, study_from_toml
 from tubeyield.jobs.front import front
 from tubeyield.jobs.optimize import optimize
 from tubeyield.jobs.window import window
@@ -117,7 +117,7 @@ def test_window_feasible_region_agrees_with_direct_simulation(demo):
 
 
 def test_window_cell_by_cell_for_zones_agrees_with_simulation():
-    text = (SCENARIOS / "oxidation.toml").read_text().split("[sweep]")[0]
+    text = demo_text().split("[sweep]")[0]
     text = text.replace('heat = "isothermal"', 'heat = "zones"\nzones = 2') \
         .replace('x = "tau"\ny = "T"\npoints = [60, 60]', 'x = "T.1"\ny = "T.2"\npoints = [5, 4]')
     net = (SCENARIOS / "oxidation-network.toml").read_text()
@@ -219,7 +219,7 @@ def test_front_points_equal_cold_optimizations_at_their_level():
     # x >= level as an ordinary limit. This configuration (T up to 400 K, 21 levels) once stopped 3e-6 short at
     # level 1, when Ipopt's unscaled tolerances were at their loose defaults.
     from tubeyield.study.metric import Limit
-    text = (SCENARIOS / "oxidation.toml").read_text().split("[window]")[0].replace('T = ["310 K", "420 K"]',
+    text = demo_text().split("[window]")[0].replace('T = ["310 K", "420 K"]',
                                                                                   'T = ["310 K", "400 K"]')
     net = (SCENARIOS / "oxidation-network.toml").read_text()
     study = study_from_toml(text.replace('include = "oxidation-network.toml"', "") + net)
@@ -236,7 +236,7 @@ def test_front_points_equal_cold_optimizations_at_their_level():
 def test_front_over_a_metric_with_units_sets_levels_in_si():
     # productivity:B is shown in mol/(L*h) but the model works in mol/(m^3*s): the levels must span the two
     # single-metric optima in the same units, every level must be met, and the slope must be the front's own.
-    text = (SCENARIOS / "oxidation.toml").read_text().split("[window]")[0]
+    text = demo_text().split("[window]")[0].replace('tau = ["0.5 min", "90 min"]', 'tau = ["1 min", "90 min"]')
     text = text.replace('limits = ["conversion:A >= 0.80", "yield:C <= 0.10", "T <= 400 K"]', 'limits = ["T <= 400 K"]')
     text = text.replace('x = "conversion:A"\ny = "selectivity:B"', 'x = "productivity:B"\ny = "yield:B"')
     net = (SCENARIOS / "oxidation-network.toml").read_text()

@@ -5,6 +5,7 @@ Every case is a variation of the demo study (or its network file), run as a real
 """
 
 import os
+import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -44,7 +45,7 @@ CASES = {
     "unknown top-level table": (STUDY + "\n[reactions]\nx = 1\n", NETWORK, "check", "reactions"),
     "misspelt key": (sub('phase = "liquid"', 'phaze = "liquid"'), NETWORK, "check", "feed.phaze"),
     # ----------------------------------------------------------------------------------------------- types
-    "tau as boolean": (sub('tau = ["1 min", "90 min"]', "tau = true"), NETWORK, "check", "operate.tau"),
+    "tau as boolean": (sub('tau = ["0.5 min", "90 min"]', "tau = true"), NETWORK, "check", "operate.tau"),
     "elements as text": (sub("elements = 40", 'elements = "forty"'), NETWORK, "check", "reactor.elements"),
     "elements fractional": (sub("elements = 40", "elements = 40.5"), NETWORK, "check", "reactor.elements"),
     "limits as string": (sub('limits = ["conversion:A >= 0.80", "yield:C <= 0.10", "T <= 400 K"]',
@@ -67,7 +68,7 @@ CASES = {
                             "operate.T"),
     "negative absolute temperature": (sub('T = ["310 K", "420 K"]', 'T = ["-5 K", "420 K"]'), NETWORK, "check",
                                       "operate.T"),
-    "zero residence time": (sub('tau = ["1 min", "90 min"]', 'tau = ["0 s", "90 min"]'), NETWORK, "check",
+    "zero residence time": (sub('tau = ["0.5 min", "90 min"]', 'tau = ["0 s", "90 min"]'), NETWORK, "check",
                             "operate.tau"),
     "huge rate constant": (STUDY, sub('k = "0.010 L/(mol*s)"', 'k = "1e300 L/(mol*s)"', NETWORK), "check", ".k"),
     "huge activation energy": (STUDY, sub('Ea = "60 kJ/mol"', 'Ea = "1e9 kJ/mol"', NETWORK), "check", "Ea"),
@@ -87,7 +88,7 @@ CASES = {
     "negative sweep time limit": (sub("share = 0.95", 'share = 0.95\ntime_limit = "-5 s"'), NETWORK, "check",
                                   "sweep.time_limit"),
     "share above one": (sub("share = 0.95", "share = 1.5"), NETWORK, "check", "sweep.share"),
-    "range reversed": (sub('tau = ["1 min", "90 min"]', 'tau = ["90 min", "1 min"]'), NETWORK, "check", "operate.tau"),
+    "range reversed": (sub('tau = ["0.5 min", "90 min"]', 'tau = ["90 min", "1 min"]'), NETWORK, "check", "operate.tau"),
     "unbalanced equation is accepted by optimize": (STUDY, sub('equation = "2 B -> E + W"', 'equation = "2 B -> E"',
                                                                NETWORK), "optimize", None),
     # ----------------------------------------------------------------------------------------------- sizes
@@ -124,8 +125,8 @@ CASES = {
                         "goal.limits[2]"),
     "code in an equation": (STUDY, sub('equation = "2 B -> E + W"', 'equation = "__import__(\'os\') -> E"', NETWORK),
                             "check", "equation"),
-    "dunder sweep path": (sub('"reaction.over.Ea"', '"reaction.over.__class__"'), NETWORK, "check", "sweep.vary"),
-    "path-like sweep path": (sub('"reaction.over.Ea"', '"../../etc/passwd"'), NETWORK, "check", "sweep.vary"),
+    "dunder sweep path": (sub('"reaction.*.k_factor"', '"reaction.over.__class__"'), NETWORK, "check", "sweep.vary"),
+    "path-like sweep path": (sub('"reaction.*.k_factor"', '"../../etc/passwd"'), NETWORK, "check", "sweep.vary"),
     # ---------------------------------------------------------------------------------------------- includes
     "include climbing out": (sub('include = "oxidation-network.toml"', 'include = "../outside/net.toml"'), None,
                              "check", "study.include"),
@@ -141,11 +142,15 @@ CASES = {
     "include of a folder": (sub('include = "oxidation-network.toml"', 'include = "folder"'), None, "check",
                             "study.include"),
     "nested include": (STUDY, '[study]\ninclude = "other.toml"\n' + NETWORK, "check", "study"),
+    "measurement file outside": (sub('data = "lab/oxidation-runs.csv"', 'data = "/etc/passwd"'), NETWORK, "check",
+                                 "experiment.T325-O1.data"),
+    "rival network climbing out": (sub('rivals = ["lab/oxidation-network-no-dimer.toml"]',
+                                       'rivals = ["../outside/net.toml"]'), NETWORK, "check", "fit.rivals[0]"),
     "network with an unknown table": (STUDY, NETWORK + "\n[feed]\nflow = '1 L/min'\n", "check", "feed"),
     # ----------------------------------------------------------------- optional sections a job does not use
-    "broken sweep does not stop optimize": (sub('"reaction.over.Ea" = { normal', '"reaction.over.Eb" = { normal'),
+    "broken sweep does not stop optimize": (sub('"reaction.*.k_factor" = { uniform', '"reaction.over.Eb" = { uniform'),
                                             NETWORK, "optimize", None),
-    "broken sweep stops sweep": (sub('"reaction.over.Ea" = { normal', '"reaction.over.Eb" = { normal'), NETWORK,
+    "broken sweep stops sweep": (sub('"reaction.*.k_factor" = { uniform', '"reaction.over.Eb" = { uniform'), NETWORK,
                                  "sweep", "sweep.vary"),
 }
 
@@ -159,6 +164,7 @@ def run_case(tmp_path, study_text, network_text, command):
     (work / "study.toml").write_text(study_text, encoding="utf-8", errors="surrogateescape")
     if network_text is not None:
         (work / "oxidation-network.toml").write_text(network_text)
+    shutil.copytree(SCENARIOS / "lab", work / "lab")          # the demo's lab runs, read by check
     (work / "big.toml").write_text(chain(5000))
     (work / "folder").mkdir()
     os.symlink(outside / "net.toml", work / "link.toml")

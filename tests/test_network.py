@@ -1,6 +1,7 @@
 """Network checks: stoichiometric consistency by LP and irreducible infeasible subsets (Gevorgyan, Poolman and Fell, Bioinformatics 24 (2008)
 2245), exact element balances, reachability from the feed."""
 
+import shutil
 import subprocess
 import sys
 
@@ -144,6 +145,7 @@ def test_cli_inconsistent_network_exit_2(tmp_path):
     net = (SCENARIOS / "oxidation-network.toml").read_text().replace('"B + O -> C + 2 W"', '"B + O -> C + W"')
     (tmp_path / "oxidation-network.toml").write_text(net)
     (tmp_path / "s.toml").write_text((SCENARIOS / "oxidation.toml").read_text())
+    shutil.copytree(SCENARIOS / "lab", tmp_path / "lab")        # the demo's lab runs, which check reads too
     r = _cli("check", str(tmp_path / "s.toml"))
     assert r.returncode == 2
     assert "reaction over" in r.stderr and "element H does not balance" in r.stderr

@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from scipy.optimize import minimize
 
-from helpers import SCENARIOS, study_from_toml
+from helpers import SCENARIOS, demo_text, study_from_toml
 from tubeyield.jobs.optimize import optimize
 from tubeyield.reactor.simulate import simulate
 from tubeyield.study import load_study
@@ -73,7 +73,7 @@ def test_decision_bound_marginal_matches_finite_difference(demo, demo_optimum):
 
 def test_temperature_limit_marginal_per_kelvin():
     # The T limit holds along the whole reactor; its marginal is per K of the limit.
-    text = (SCENARIOS / "oxidation.toml").read_text().replace('"T <= 400 K"', '"T <= 335 K"')
+    text = demo_text().replace('"T <= 400 K"', '"T <= 335 K"')
     net = (SCENARIOS / "oxidation-network.toml").read_text()
     study = study_from_toml(text.replace('include = "oxidation-network.toml"', "") + net)
     res = optimize(study)
@@ -150,7 +150,7 @@ def test_cli_optimize_json_and_save(tmp_path):
 
 
 def test_cli_infeasible_exit_3(tmp_path):
-    text = (SCENARIOS / "oxidation.toml").read_text().replace('"conversion:A >= 0.80", "yield:C <= 0.10"',
+    text = demo_text().replace('"conversion:A >= 0.80", "yield:C <= 0.10"',
                                                                '"conversion:A >= 0.99", "yield:C <= 0.02"')
     (tmp_path / "s.toml").write_text(text)
     (tmp_path / "oxidation-network.toml").write_text((SCENARIOS / "oxidation-network.toml").read_text())
@@ -192,7 +192,7 @@ def test_cli_simulate_bad_setting_is_user_error():
 def test_cli_simulate_outside_the_range_is_noted_and_a_negative_time_refused():
     r = _cli("simulate", str(SCENARIOS / "oxidation.toml"), "--set", "tau=500min", "--json")
     assert r.returncode == 0, r.stderr
-    assert any("tau = 500 min is outside the study's range [1, 90] min" in n for n in json.loads(r.stdout)["notes"])
+    assert any("tau = 500 min is outside the study's range [0.5, 90] min" in n for n in json.loads(r.stdout)["notes"])
     r = _cli("simulate", str(SCENARIOS / "oxidation.toml"), "--set", "tau=-5min")
     assert r.returncode == 2 and r.stderr.startswith("error: --set tau: a positive value") and "Traceback" not in r.stderr
 
@@ -213,7 +213,7 @@ def test_cli_unwritable_save_directory_is_one_line_exit_2(tmp_path):
     ('mu_strategy = "sideways"', "numerics.ipopt"),                 # passed through; Ipopt refuses the value
 ])
 def test_cli_ipopt_option_refused_is_a_study_error(tmp_path, option, key):
-    text = (SCENARIOS / "oxidation.toml").read_text().replace("[front]", f"[numerics]\nipopt = {{ {option} }}\n\n[front]")
+    text = demo_text().replace("[front]", f"[numerics]\nipopt = {{ {option} }}\n\n[front]")
     (tmp_path / "s.toml").write_text(text)
     (tmp_path / "oxidation-network.toml").write_text((SCENARIOS / "oxidation-network.toml").read_text())
     r = _cli("optimize", str(tmp_path / "s.toml"))
@@ -230,7 +230,7 @@ def test_marginal_ranges_agree_with_re_optimizing_at_the_relaxed_bound(tmp_path)
     from tubeyield.jobs.optimize import optimize
     from tubeyield.study import load_study
     shutil.copy(SCENARIOS / "oxidation-network.toml", tmp_path)
-    text = (SCENARIOS / "oxidation.toml").read_text()
+    text = demo_text()
     (tmp_path / "base.toml").write_text(text)
     (tmp_path / "relaxed.toml").write_text(text.replace('"yield:C <= 0.10"', '"yield:C <= 0.101"'))
     base = optimize(load_study(tmp_path / "base.toml"), relax=True)

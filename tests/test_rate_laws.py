@@ -20,7 +20,7 @@ from helpers import study_from_toml
 from tubeyield.jobs.evaluate import evaluate
 from tubeyield.jobs.optimize import optimize
 from tubeyield.jobs.problem import prepare
-from tubeyield.jobs.scenario import apply_values
+from tubeyield.study.variation import apply_values
 from tubeyield.study.laws import LAWS, Adsorption, LangmuirHinshelwood, PowerLaw, Reversible
 
 # Invented kinetics (tests only).

@@ -12,7 +12,7 @@ from pathlib import Path
 
 import pytest
 
-from helpers import ROOT, SCENARIOS
+from helpers import ROOT, SCENARIOS, demo_text
 
 BROWSER = shutil.which("chromium") or shutil.which("chromium-browser")
 pytestmark = pytest.mark.skipif(BROWSER is None, reason="no headless browser: install Debian's 'chromium' package "
@@ -84,7 +84,7 @@ def _assert_reads_well(found: dict):
 
 def test_the_demo_report_reads_well_in_a_browser(tmp_path):
     shutil.copy(SCENARIOS / "oxidation-network.toml", tmp_path)
-    text = (SCENARIOS / "oxidation.toml").read_text().replace("points = [60, 60]", "points = [24, 20]")
+    text = demo_text().replace("points = [60, 60]", "points = [24, 20]")
     (tmp_path / "demo.toml").write_text(text)
     found = _browse(_report(tmp_path, "demo.toml", front=True), "demo")
     _assert_reads_well(found)
@@ -93,7 +93,7 @@ def test_the_demo_report_reads_well_in_a_browser(tmp_path):
 
 def test_a_free_profile_report_has_bounded_figures(tmp_path):
     shutil.copy(SCENARIOS / "oxidation-network.toml", tmp_path)
-    text = (SCENARIOS / "oxidation.toml").read_text()
+    text = demo_text()
     text = text.replace('heat = "isothermal"', 'heat = "free"').replace("elements = 40", "elements = 20")
     text = text.replace('y = "T"', 'y = "ratio.O"').replace("points = [60, 60]", "points = [10, 8]")
     (tmp_path / "free.toml").write_text(text)

@@ -24,7 +24,7 @@ def test_demo_study_loads_in_si():
     assert study.feed.flow == pytest.approx(2e-3 / 60, rel=1e-12)
     assert dict(study.feed.conc)["A"] == pytest.approx(1000.0)
     tau = study.decision("tau")
-    assert (tau.low, tau.high, tau.unit) == (60.0, 5400.0, "min")
+    assert (tau.low, tau.high, tau.unit) == (30.0, 5400.0, "min")
     assert study.decision("ratio.O").high == 3.0
     assert [lim.text for lim in study.goal.limits] == ["conversion:A >= 0.80", "yield:C <= 0.10", "T <= 400 K"]
     assert study.includes and study.includes[0].ref == "oxidation-network.toml"

@@ -211,7 +211,9 @@ def test_sigkill_part_way_then_resume_equals_uninterrupted(tmp_path, reference_r
 def test_ctrl_c_keeps_finished_scenarios_and_resume_completes(tmp_path, reference_run):
     study = write_study(tmp_path)
     store = tmp_path / "s.sqlite"
-    proc = subprocess.Popen(_sweep_cmd(study, store, "--workers", "2"), stdout=subprocess.PIPE,
+    # one worker, so that a core stays free for this test to see the fifth row and interrupt: with two workers on
+    # two cores the 40 scenarios once finished between two looks at the store
+    proc = subprocess.Popen(_sweep_cmd(study, store, "--workers", "1"), stdout=subprocess.PIPE,
                             stderr=subprocess.PIPE, text=True, start_new_session=True, env=_env())
     try:
         _wait_for_rows(store, 5, proc)
@@ -347,7 +349,7 @@ def test_sweep_report_summarizes_and_the_report_shows_it(tmp_path, reference_run
         {"reaction.second.Ea", "reaction.first.k"}
     # each candidate's share, recomputed here: simulate it in every stored scenario and count where all limits hold
     from tubeyield.jobs.evaluate import evaluate
-    from tubeyield.jobs.scenario import apply_values
+    from tubeyield.study.variation import apply_values
     from tubeyield.jobs.store import open_existing
     from tubeyield.study import load_study
     base = load_study(study)

@@ -15,7 +15,8 @@ from scipy import stats
 
 from helpers import study_from_toml
 from tubeyield.jobs.evaluate import evaluate
-from tubeyield.jobs.scenario import apply_values, scenarios
+from tubeyield.jobs.scenario import scenarios
+from tubeyield.study.variation import apply_values
 from tubeyield.jobs.sweep import run_scenario
 
 # Invented kinetics (tests only): the series scheme, isothermal at T_ref so that k is the given value.
@@ -132,3 +133,14 @@ def test_a_front_point_that_needs_a_finer_mesh_gets_one():
     last = f.points[-1]
     assert "finer mesh" in last.get("note", "") and last["check"] <= study.numerics.check_tolerance
     assert last["x"] == pytest.approx(1.0, abs=1e-5)
+
+
+def test_a_catalyst_factor_scales_the_rate_constants_a_scenario_sets_whatever_the_order():
+    """reaction.*.k_factor multiplies k after the scenario's own rate constants are set (a fit's draws)."""
+    from helpers import BASE_TOML
+    study = study_from_toml(BASE_TOML)
+    for values in ({"reaction.r1.k": 2.0e-3, "reaction.*.k_factor": 0.5},
+                   {"reaction.*.k_factor": 0.5, "reaction.r1.k": 2.0e-3}):
+        applied = apply_values(study, values)
+        assert math.exp(applied.reaction("r1").k.ln_k_ref) == pytest.approx(1.0e-3, rel=1e-12), list(values)
+        assert applied.reaction("r2").k.ln_k_ref == pytest.approx(study.reaction("r2").k.ln_k_ref + math.log(0.5))

@@ -37,6 +37,7 @@ def _parser() -> argparse.ArgumentParser:
     o.add_argument("--save", metavar="DIR", help=f"write {SAVED['optimize']}, {SAVED['optimize-profile']} and the inputs to DIR")
     o.add_argument("--starts", type=int, help="number of starting points (default: numerics.starts)")
     o.add_argument("--tee", action="store_true", help="show Ipopt's iteration log")
+    _kinetics_option(o)
 
     s = sub.add_parser("simulate", help="profiles and metrics at a given operating point")
     s.add_argument("study")
@@ -44,12 +45,14 @@ def _parser() -> argparse.ArgumentParser:
                    help="a decision value with units, e.g. tau=120s, T=340K, ratio.O=1.5 (repeatable)")
     s.add_argument("--json", action="store_true")
     s.add_argument("--profile", metavar="CSV", help="write the axial profile to this CSV file")
+    _kinetics_option(s)
 
     f = sub.add_parser("front", help="the Pareto front of the two metrics in [front]")
     f.add_argument("study")
     f.add_argument("--points", type=int, help="number of levels (default: front.points)")
     f.add_argument("--json", action="store_true")
     f.add_argument("--save", metavar="DIR", help=f"write {SAVED['front']} and {SAVED['front-table']} to DIR")
+    _kinetics_option(f)
 
     w = sub.add_parser("window", help="maps of the goal and the limits over the two decisions in [window]")
     w.add_argument("study")
@@ -58,6 +61,7 @@ def _parser() -> argparse.ArgumentParser:
     w.add_argument("--workers", type=int, help="processes for cell-by-cell maps (default: all cores)")
     w.add_argument("--json", action="store_true")
     w.add_argument("--save", metavar="DIR", help=f"write {SAVED['window']} to DIR")
+    _kinetics_option(w)
 
     sw = sub.add_parser("sweep", help="run every scenario of [sweep] into a SQLite store")
     sw.add_argument("study")
@@ -71,6 +75,7 @@ def _parser() -> argparse.ArgumentParser:
     sw.add_argument("--worker-wait", type=float, metavar="SECONDS", help="how long to wait for a worker when the "
                                                                          "cluster has none (default 120)")
     sw.add_argument("--quiet", action="store_true", help="no progress bar")
+    _kinetics_option(sw)
 
     sr = sub.add_parser("sweep-report", help="summarize a sweep store: distributions, influence, robustness")
     sr.add_argument("store")
@@ -82,13 +87,19 @@ def _parser() -> argparse.ArgumentParser:
     ft = sub.add_parser("fit", help="estimate the kinetics in [fit] from the lab runs in [[experiment]]")
     ft.add_argument("study")
     ft.add_argument("--json", action="store_true", help="print the fit as JSON")
-    ft.add_argument("--save", metavar="DIR", help=f"write {SAVED['fit']} and the inputs to DIR")
+    ft.add_argument("--save", metavar="DIR", help=f"write {SAVED['fit']}, {SAVED['fit-network']} (the fitted network, "
+                                                  f"for include), {SAVED['fit-covariance']} and the inputs to DIR")
     ft.add_argument("--tee", action="store_true", help="show Ipopt's iteration log")
 
     r = sub.add_parser("report", help="build the HTML report from saved results")
     r.add_argument("results", help="a directory written by --save")
     r.add_argument("--out", metavar="DIR", help="where to write the report (default: reports/<study>)")
     return p
+
+
+def _kinetics_option(parser) -> None:
+    parser.add_argument("--kinetics", metavar="FIT_JSON", help="use the kinetics fitted by 'tubeyield fit --save DIR' "
+                                                               "(DIR/fit.json) instead of the study's own values")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -133,12 +144,16 @@ def main(argv: list[str] | None = None) -> int:
 _GUARDS: list = []     # the running command's exit stack: _load arms the wall-time guard on it
 
 
-def _load(path: str, table: str | None = None, what: str = "", *, guard: bool = True, need=None):
+def _load(path: str, table: str | None = None, what: str = "", *, guard: bool = True, need=None, kinetics=None):
     """The study at `path`; with `table`, one that has that table (a StudyError naming it otherwise). Mistakes in
     optional sections the job does not use are not errors (`need`: the sections it does use; default `table`).
-    Arms the command's wall-time guard (numerics.time_limit) unless `guard` is False."""
+    `kinetics`: a fit file whose values replace the study's (--kinetics). Arms the command's wall-time guard
+    (numerics.time_limit) unless `guard` is False."""
     from tubeyield.study import load_study
     study = load_study(path, need=need if need is not None else ((table,) if table else ()))
+    if kinetics:
+        from tubeyield.study.read_kinetics import load_kinetics
+        study = load_kinetics(study, kinetics)
     if table is not None and getattr(study, table) is None:
         raise StudyError(table, f"a [{table}] table with {what}", file=path)
     if guard and _GUARDS:
@@ -210,7 +225,7 @@ def _optimize(args) -> int:
     from tubeyield.report.files import save_result
     from tubeyield.report.text import optimum_summary
 
-    study = _load(args.study)
+    study = _load(args.study, kinetics=args.kinetics)
     _at_least(args.starts, "--starts", 1, "a number of starting points")
     result = optimize(study, starts=args.starts, tee=args.tee, relax=True)
     if args.save:
@@ -227,7 +242,7 @@ def _simulate(args) -> int:
     from tubeyield.report.files import write_atomic
     from tubeyield.report.text import evaluation_summary
 
-    study = _load(args.study)
+    study = _load(args.study, kinetics=args.kinetics)
     values, notes = parse_settings(study, args.settings)
     result = evaluate(study, values)
     if args.profile:
@@ -248,7 +263,7 @@ def _front(args) -> int:
     from tubeyield.jobs.front import front
     from tubeyield.report.files import save_inputs, saved, write_atomic, write_json
 
-    study = _load(args.study, "front", "x, y and points")
+    study = _load(args.study, "front", "x, y and points", kinetics=args.kinetics)
     _at_least(args.points, "--points", 3, "a number of levels")
     result = front(study, points=args.points)
     if args.save:
@@ -272,7 +287,7 @@ def _window(args) -> int:
     from tubeyield.jobs.window import optimum_marker, window
     from tubeyield.report.files import save_inputs, saved, write_json
 
-    study = _load(args.study, "window", "x, y and points")
+    study = _load(args.study, "window", "x, y and points", kinetics=args.kinetics)
     if args.at:
         try:
             optimum_d = _json.loads(Path(args.at).read_text(encoding="utf-8"))
@@ -302,7 +317,7 @@ def _window(args) -> int:
 def _sweep(args) -> int:
     from tubeyield.jobs.sweep import sweep
 
-    study = _load(args.study, "sweep", "'vary'", guard=False)
+    study = _load(args.study, "sweep", "'vary'", guard=False, kinetics=args.kinetics)
     _at_least(args.workers, "--workers", 1, "a number of processes")
     if args.worker_wait is not None and args.worker_wait <= 0:
         raise StudyError("--worker-wait", f"a positive number of seconds, got {args.worker_wait:g}")
@@ -348,13 +363,17 @@ def _sweep_report(args) -> int:
 
 def _fit(args) -> int:
     from tubeyield.jobs.fit import fit
-    from tubeyield.report.files import save_inputs, saved, write_json
+    from tubeyield.report.files import save_inputs, saved, write_atomic, write_json
     from tubeyield.report.text import fit_summary
 
     study = _load(args.study, "fit", "estimate (and [[experiment]] runs)")
     result = fit(study, tee=args.tee)
     if args.save:
+        from tubeyield.report.network_file import covariance_csv, network_toml
         write_json(saved(args.save, "fit"), result.to_dict())
+        if result.values_si:
+            write_atomic(saved(args.save, "fit-network"), network_toml(study, result))
+            write_atomic(saved(args.save, "fit-covariance"), covariance_csv(result))
         save_inputs(args.save, study)
     if args.json:
         _print_json(result.to_dict())

@@ -220,7 +220,7 @@ def case_sweep(n: int, rows: list, notes: list, tmp: Path):
     db.close()
     # cold optimizations of the same scenarios, each with a fresh model and solver (as a new process would)
     from tubeyield.jobs.optimize import optimize
-    from tubeyield.jobs.scenario import apply_values
+    from tubeyield.study.variation import apply_values
     base = load(text, "bench-sweep")
     cold = []
     for values in inputs:
@@ -419,6 +419,8 @@ def write_report(rows, notes, out: Path, started: float, quick: bool):
                 continue
             lines.append(f"| {e['species']} | {e['reactions']} | {fmt(e['seconds'])} | {e['status']} | "
                          f"{e['elements']} | {fmt(e['check'])} | {fmt(e['peak_rss_mb'])} |")
+    from fit_cases import report_lines
+    lines += report_lines(by)
     lines += ["", "## Targets", ""] + _targets(by) + ["", "## Where targets are missed, and why", ""] + \
         _explain(by) + ["", "## Notes", ""] + [f"- {n}" for n in notes]
     (out / "index.md").write_text("\n".join(lines) + "\n")
@@ -464,6 +466,8 @@ def _targets(by) -> list:
              bool(r["resolve_speedup"] and r["resolve_speedup"] >= 3))
         line("at least 5 scenario optimizations per second on 2 cores", f"{r['scenarios_per_s']:.1f}/s on "
              f"{os.cpu_count()} cores", r["scenarios_per_s"] >= 5)
+    from fit_cases import targets
+    targets(by, line)
     if "f" in by:
         els = [e for e in by["f"]["scaling"]["elements"] if "error" not in e]
         if len(els) >= 2:
@@ -544,6 +548,9 @@ def main():
         print("d done", flush=True)
         case_sweep(60 if args.quick else 500, rows, notes, tmp)
         print("e done", flush=True)
+        from fit_cases import case_fits
+        case_fits(rows, notes, tmp, args.quick)
+        print("g, h done", flush=True)
         case_scaling([20, 40, 80] if args.quick else [20, 40, 80, 160, 320, 400],
                      [4, 8] if args.quick else [4, 8, 12, 16, 20], rows, tmp)
         print("f done", flush=True)

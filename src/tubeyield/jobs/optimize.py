@@ -144,6 +144,10 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
                                "verification; the best verified point is reported")
     if status == st.UNVERIFIED:
         result.message = "NOT VERIFIED: " + "; ".join(_doubts(run, verified))
+    from tubeyield.study.read_kinetics import extrapolation
+    note = extrapolation(study, result.decisions_si)
+    if note:
+        result.warnings.append(note)
     return result
 
 

@@ -9,60 +9,11 @@ import dataclasses
 import hashlib
 import itertools
 import json
-import math
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import numpy as np
 
-from tubeyield.errors import StudyError
-from tubeyield.study.schema import Study, Variation
-
-
-def apply_values(study: Study, values: dict[str, float]) -> Study:
-    """The study with each path set to its SI value. Paths were validated when the sweep was read."""
-    for path, v in values.items():
-        study = _apply(study, path, float(v))
-    return study
-
-
-def _apply(study: Study, path: str, v: float) -> Study:
-    parts = path.split(".")
-    if parts[0] == "reaction":
-        rid, attr = parts[1], ".".join(parts[2:])
-        if attr in ("k", "k_factor") and v <= 0:
-            raise StudyError(path, f"a positive value; sampled {v:g}")
-        rs = []
-        for r in study.reactions:
-            if rid in ("*", r.id):
-                if attr == "k":
-                    r = replace(r, k=replace(r.k, ln_k_ref=math.log(v)))
-                elif attr == "k_factor":
-                    r = replace(r, k=replace(r.k, ln_k_ref=r.k.ln_k_ref + math.log(v)))
-                elif attr == "Ea":
-                    r = replace(r, k=replace(r.k, Ea=v))
-                elif attr == "dH":
-                    r = replace(r, dH=v)
-                else:                                   # a constant of the rate law (study/laws.py)
-                    try:
-                        r = replace(r, law=r.law.with_path(attr, v))
-                    except StudyError as exc:
-                        raise StudyError(path, exc.expected) from None
-            rs.append(r)
-        return replace(study, reactions=tuple(rs))
-    if parts[0] == "feed":
-        if parts[1] == "conc":
-            conc = dict(study.feed.conc)
-            conc[parts[2]] = v
-            return replace(study, feed=replace(study.feed, conc=tuple(conc.items())))
-        return replace(study, feed=replace(study.feed, **{parts[1]: v}))
-    if parts[0] == "operate":
-        return study.with_decisions({".".join(parts[1:]): v})
-    if parts[0] == "species":
-        sp = tuple(replace(s, Cp=v) if s.symbol == parts[1] else s for s in study.species)
-        return replace(study, species=sp)
-    if path == "reactor.U":
-        return replace(study, reactor=replace(study.reactor, U=v))
-    raise KeyError(path)
+from tubeyield.study.schema import FittedKinetics, Study, Variation
 
 
 # ------------------------------------------------------------------------------------------------------ scenarios
@@ -99,18 +50,41 @@ def _sample(v: Variation, u: np.ndarray) -> np.ndarray:
     return stats.triang.ppf(u, c=(mode - low) / (high - low), loc=low, scale=high - low)
 
 
+def fit_draws(kinetics: FittedKinetics, u: np.ndarray) -> list[dict]:
+    """Joint draws of the fitted parameters from uniform [0, 1) samples u (n x p): x = x_hat + L z with z standard
+    normal (the inverse normal of u) and L L^T the fit's covariance in the estimation coordinates (a multivariate
+    normal, correlations kept; an eigen-factor where Cholesky fails on a numerically semi-definite matrix), then
+    each path's SI value through the fit's linear forms (FittedKinetics.values_at)."""
+    from scipy import stats
+    cov = np.asarray(kinetics.cov, dtype=float)
+    try:
+        L = np.linalg.cholesky(cov)
+    except np.linalg.LinAlgError:
+        w, V = np.linalg.eigh(cov)
+        L = V * np.sqrt(np.clip(w, 0.0, None))
+    z = stats.norm.ppf(u)
+    x_hat = np.asarray(kinetics.x, dtype=float)
+    # forward orders are structural in the reactor models (a built model is re-solved per scenario): they stay at
+    # their estimates, and only the constants are drawn
+    return [{p: v for p, v in kinetics.values_at(x_hat + L @ row).items() if ".order." not in p} for row in z]
+
+
 def scenarios(study: Study) -> list[Scenario]:
     """The sweep's scenarios: the cartesian product of the grid values, times the Latin-hypercube samples of the
-    distributions (McKay, Beckman and Conover, Technometrics 21 (1979) 239; scipy.stats.qmc, seeded)."""
+    distributions and, with fit_uncertainty, of the fitted parameters drawn jointly from the fit (McKay, Beckman and
+    Conover, Technometrics 21 (1979) 239; scipy.stats.qmc, seeded)."""
     from scipy.stats import qmc
     spec = study.sweep
     grid = [v for v in spec.vary if v.distribution is None]
     dist = [v for v in spec.vary if v.distribution is not None]
     grid_points = list(itertools.product(*[[(v.path, x) for x in v.values] for v in grid])) if grid else [()]
-    if dist:
-        u = qmc.LatinHypercube(d=len(dist), seed=spec.seed).random(spec.samples)
+    p_fit = len(study.kinetics.x) if spec.fit_uncertainty and study.kinetics is not None else 0
+    if dist or p_fit:
+        u = qmc.LatinHypercube(d=len(dist) + p_fit, seed=spec.seed).random(spec.samples)
         columns = [_sample(v, u[:, k]) for k, v in enumerate(dist)]
-        samples = [tuple((v.path, float(col[i])) for v, col in zip(dist, columns)) for i in range(spec.samples)]
+        drawn = fit_draws(study.kinetics, u[:, len(dist):]) if p_fit else [{}] * spec.samples
+        samples = [tuple((v.path, float(col[i])) for v, col in zip(dist, columns)) + tuple(drawn[i].items())
+                   for i in range(spec.samples)]
     else:
         samples = [()]
     fp = study_fingerprint(study)

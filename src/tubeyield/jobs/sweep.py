@@ -22,7 +22,8 @@ import numpy as np
 
 from tubeyield import status as st
 from tubeyield.errors import StudyError
-from tubeyield.jobs.scenario import Scenario, apply_values, scenarios, study_fingerprint
+from tubeyield.jobs.scenario import Scenario, scenarios, study_fingerprint
+from tubeyield.study.variation import apply_values
 from tubeyield.jobs.store import Store
 from tubeyield.study.schema import Study
 
@@ -222,6 +223,7 @@ def sweep(study: Study, store_path, *, workers: int | None = None, dask: str | N
     `worker_wait` seconds (a Dask cluster whose workers are gone), the sweep stops and says how many did not run."""
     if study.sweep is None:
         raise StudyError("sweep", "a [sweep] table with 'vary'")
+    check_fit_uncertainty(study)
     if retry_failed and not resume:
         raise StudyError("--retry-failed", "--resume as well (it re-runs the failed scenarios of an existing store)")
     t0 = time.perf_counter()
@@ -246,6 +248,19 @@ def sweep(study: Study, store_path, *, workers: int | None = None, dask: str | N
     outcome.ran = sum(counts.values())
     outcome.seconds = time.perf_counter() - t0
     return outcome
+
+
+def check_fit_uncertainty(study: Study) -> None:
+    """sweep.fit_uncertainty needs a fit with a covariance to draw from (--kinetics)."""
+    if not study.sweep.fit_uncertainty:
+        return
+    if study.kinetics is None:
+        raise StudyError("sweep.fit_uncertainty", "a fit to draw from: give --kinetics DIR/fit.json (written by "
+                                                  "'tubeyield fit --save DIR')", file=study.path or None)
+    if not study.kinetics.cov:
+        raise StudyError("sweep.fit_uncertainty", f"a fit with a covariance; {study.kinetics.source} has none (its "
+                                                  "parameters are not all determined by the data)",
+                         file=study.path or None)
 
 
 def _lost_row(s: Scenario, why: str) -> dict:

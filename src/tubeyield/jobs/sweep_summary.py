@@ -22,7 +22,7 @@ from pathlib import PurePath
 import numpy as np
 
 from tubeyield.errors import SimulationFailed, StudyError
-from tubeyield.jobs.scenario import apply_values
+from tubeyield.study.variation import apply_values
 from tubeyield.jobs.store import open_existing
 from tubeyield.study.schema import Study
 from tubeyield.study.units import decision_to_user
@@ -40,7 +40,7 @@ def study_of_store(meta: dict) -> Study:
     if not text:
         raise StudyError("meta.study", "a store written by 'tubeyield sweep' (it keeps the study text)")
     if text.lstrip().startswith("{"):
-        return study_from_sources(text)
+        return study_from_sources(text, need=("sweep",))
     main, *blocks = text.split("\n# --- ")
     by_name = {}
     for block in blocks:

@@ -44,5 +44,7 @@ def parametric_reactions(study: Study, par) -> tuple[Reaction, ...]:
     for r in study.reactions:
         k = Arrhenius(par[f"lnk:{r.id}"], r.k.T_ref, par[f"Ea:{r.id}"])
         law = r.law.with_constants({name: par[f"law:{r.id}:{name}"] for name in r.law.constants()})
-        out.append(replace(r, k=k, law=law, dH=par[f"dH:{r.id}"]))
+        # forward orders are structural in the reactor models; a fit that estimates one passes order:<id>:<s>
+        orders = tuple((s, par.get(f"order:{r.id}:{s}", n)) for s, n in r.orders)
+        out.append(replace(r, k=k, law=law, dH=par[f"dH:{r.id}"], orders=orders))
     return tuple(out)

@@ -284,7 +284,7 @@ def _plug(sim: Simulation, kin: Kinetics, T_fun, T_in, method: str, rtol: float)
     sim.rhs = rhs = make_rhs(T_fun)
     used = []
     for z0, z1 in segments:
-        sol, how = _integrate(rhs, (z0, z1), y, method, rtol, atol)
+        sol, how = integrate_segment(rhs, (z0, z1), y, method, rtol, atol)
         if not sol.success:
             raise SimulationFailed(f"reference integration failed at z = {sol.t[-1]:.4g}: {sol.message}")
         used.append(how)
@@ -308,11 +308,14 @@ class _Stalled(Exception):
     pass
 
 
-def _integrate(rhs, span, y0, method: str, rtol: float, atol):
-    """solve_ivp on one segment: (solution, method used). LSODA falls back to BDF when it exceeds its budget."""
+def integrate_segment(rhs, span, y0, method: str, rtol: float, atol, *, t_eval=None, vectorized: bool = True):
+    """solve_ivp on one segment: (solution, method used). LSODA falls back to BDF when it exceeds its call budget.
+    With `t_eval` the solution is given at those points (no dense output); `vectorized` says whether rhs takes
+    several states at once (BDF's Jacobian)."""
+    dense = t_eval is None
     if method != "LSODA":
-        return solve_ivp(rhs, span, y0, method=method, rtol=rtol, atol=atol, dense_output=True,
-                         vectorized=True), method
+        return solve_ivp(rhs, span, y0, method=method, rtol=rtol, atol=atol, dense_output=dense, t_eval=t_eval,
+                         vectorized=vectorized), method
     calls = 0
 
     def counted(z, y):
@@ -323,9 +326,11 @@ def _integrate(rhs, span, y0, method: str, rtol: float, atol):
         return rhs(z, y)
 
     try:
-        return solve_ivp(counted, span, y0, method="LSODA", rtol=rtol, atol=atol, dense_output=True), "LSODA"
+        return solve_ivp(counted, span, y0, method="LSODA", rtol=rtol, atol=atol, dense_output=dense,
+                         t_eval=t_eval), "LSODA"
     except _Stalled:
-        return solve_ivp(rhs, span, y0, method="BDF", rtol=rtol, atol=atol, dense_output=True, vectorized=True), "BDF"
+        return solve_ivp(rhs, span, y0, method="BDF", rtol=rtol, atol=atol, dense_output=dense, t_eval=t_eval,
+                         vectorized=vectorized), "BDF"
 
 
 class _Const:

@@ -240,39 +240,55 @@ def histogram_grid(columns: dict, title: str):
     return fig
 
 
+FIT_PANELS = 14     # experiments drawn one panel each; the parity and residual panels hold every sample
+
+
 def fit_curves(fit: dict, title: str):
-    """Each experiment's samples (markers) and fitted curves (lines), and a parity plot of every sample."""
-    curves = fit.get("curves", [])[:11]
-    n = len(curves) + 1
-    cols = min(3, n)
+    """Each experiment's samples (markers) and fitted curves (lines) with the 95 % confidence band of the curve
+    (shaded), then a parity plot and the residuals of every sample (all experiments, also those beyond the panels
+    shown: at most FIT_PANELS)."""
+    all_curves = fit.get("curves", [])
+    curves = all_curves[:FIT_PANELS]
+    n = len(curves) + 2
+    cols = min(4, n)
     rows = (n + cols - 1) // cols
     with plt.rc_context(STYLE):
-        fig, axes = plt.subplots(rows, cols, figsize=(3.5 * cols, 2.8 * rows), squeeze=False)
-        measured, fitted = [], []
+        fig, axes = plt.subplots(rows, cols, figsize=(3.2 * cols, 2.7 * rows), squeeze=False)
         for ax, cv in zip(axes.ravel(), curves):
             t_end = cv["t"][-1]
             unit, f = ("min", 60.0) if t_end >= 300.0 else ("s", 1.0)
-            time_name = "residence time" if cv["vessel"] == "plug" else "time"
+            time_name = "residence time" if cv["vessel"] in ("plug", "stirred") else "time"
+            t = np.array(cv["t"]) / f
             for i, (s, model) in enumerate(cv["model"].items()):
                 colour = PALETTE[i % len(PALETTE)]
-                ax.plot(np.array(cv["t"]) / f, model, color=colour, lw=1.4, label=s)
+                ax.plot(t, model, color=colour, lw=1.3, label=s)
+                band = cv.get("band", {}).get(s)
+                if band:
+                    m, b = np.array(model), np.array(band)
+                    ax.fill_between(t, m - b, m + b, color=colour, alpha=0.25, lw=0)
                 d = cv["data"][s]
-                ax.plot(np.array(d["t"]) / f, d["c"], "o", color=colour, ms=3.5, mfc="white")
-                measured += d["c"]
-                fitted += d["fit"]
-            ax.set_title(f"{cv['id']} ({cv['vessel']}, {cv['T']:.1f} K)", fontsize=8.5)
-            ax.set_xlabel(_label(time_name, unit), fontsize=8)
-            ax.set_ylabel(_label("concentration", "mol/L"), fontsize=8)
-            ax.legend(fontsize=7, frameon=False)
+                ax.plot(np.array(d["t"]) / f, d["c"], "o", color=colour, ms=3.2, mfc="white")
+            ax.set_title(f"{cv['id']} ({cv['vessel']}, {cv['T']:.1f} K)", fontsize=8)
+            ax.set_xlabel(_label(time_name, unit), fontsize=7.5)
+            ax.set_ylabel(_label("concentration", "mol/L"), fontsize=7.5)
+            ax.legend(fontsize=6.5, frameon=False, ncol=2)
+        measured = [v for cv in all_curves for d in cv["data"].values() for v in d["c"]]
+        fitted = [v for cv in all_curves for d in cv["data"].values() for v in d["fit"]]
         ax = axes.ravel()[len(curves)]
-        ax.plot(measured, fitted, "o", color=PALETTE[0], ms=3.5, mfc="white")
+        ax.plot(measured, fitted, "o", color=PALETTE[0], ms=3, mfc="white")
         top = max(measured + fitted + [1e-12])
         ax.plot([0, top], [0, top], color="0.5", lw=0.8)
-        ax.set_xlabel(_label("measured", "mol/L"), fontsize=8)
-        ax.set_ylabel(_label("fitted", "mol/L"), fontsize=8)
-        ax.set_title("parity: every sample", fontsize=8.5)
+        ax.set_xlabel(_label("measured", "mol/L"), fontsize=7.5)
+        ax.set_ylabel(_label("fitted", "mol/L"), fontsize=7.5)
+        ax.set_title(f"parity: all {len(measured)} samples", fontsize=8)
+        ax = axes.ravel()[len(curves) + 1]
+        ax.plot(fitted, np.array(measured) - np.array(fitted), "o", color=PALETTE[1], ms=3, mfc="white")
+        ax.axhline(0.0, color="0.5", lw=0.8)
+        ax.set_xlabel(_label("fitted", "mol/L"), fontsize=7.5)
+        ax.set_ylabel(_label("measured - fitted", "mol/L"), fontsize=7.5)
+        ax.set_title("residuals", fontsize=8)
         for extra in axes.ravel()[n:]:
             extra.axis("off")
-        fig.suptitle(title, fontsize=10.5)
+        fig.suptitle(title, fontsize=10)
         fig.tight_layout()
     return fig

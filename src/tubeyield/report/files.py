@@ -55,6 +55,8 @@ SAVED = {
     "window": "window.json",
     "sweep-report": "sweep-summary.json",
     "fit": "fit.json",
+    "fit-network": "fitted-network.toml",
+    "fit-covariance": "fit-covariance.csv",
 }
 
 

@@ -51,7 +51,9 @@ def _study_from_inputs(result_dir: Path):
         document = sources.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as exc:
         raise StudyError(str(sources), f"a readable file ({exc})") from None
-    study = study_from_sources(document)
+    # the report reads saved results, not the study's optional sections: a section that cannot be read (a
+    # measurement file the run did not need) is left out, as the jobs do
+    study = study_from_sources(document, need=())
     files = [(Path(study.path).name, study.source)] + [(f.ref, f.text) for f in study.includes]
     return study, files
 
@@ -132,7 +134,8 @@ def build_report(result_dir, out_dir=None) -> Path:
         window_share=float(window.window.mean()) if window else 0.0, sweep=sweep,
         points=study.reactor.points, inputs=inputs, provenance=_provenance(),
         assumptions=_assumptions(study), summary=summary(optimum, window, sweep, report.errors(), fit),
-        fit=fit, num=_numbers(fit, sweep))
+        fit=fit, num=_numbers(fit, sweep),
+        kinetics_applied=Path(study.kinetics.source).name if study.kinetics is not None else "")
     index = out / "index.html"
     write_atomic(index, html)
     return index
@@ -199,22 +202,48 @@ def _numbers(fit, sweep) -> dict:
     return {name: i + 1 for i, name in enumerate(names)}
 
 
+def nested_verdict(test: dict) -> str:
+    """A nested test in words: whether the bigger network's extra steps are supported by the data."""
+    p = test["p_value"]
+    shown = "P < 1e-15" if p < 1e-15 else f"P = {p:.2g}"
+    if p < 0.05:
+        return f"{test['test']} test, {shown}: {test['bigger']} fits significantly better; its extra steps are needed"
+    return f"{test['test']} test, {shown}: no significant improvement from the extra steps of {test['bigger']}"
+
+
 def _fit_context(fit: dict | None) -> dict | None:
-    """A saved fit (fit.json) with the lines the template shows: the residual statement, the correlation rows."""
+    """A saved fit (fit.json) with the lines the template shows: the residual statement, the correlation rows, the
+    starts, the singular values, the residuals in standard deviations, the rivals' tests."""
     if not fit:
         return None
     fit = dict(fit)
-    if fit.get("chi_square") is not None:
+    known = fit.get("chi_square") is not None
+    if known:
         fit["residual"] = f"weighted SSR (chi-square) {fmt(fit['chi_square'], 5)}"
     elif fit.get("ssr") is not None:
         fit["residual"] = (f"SSR {fmt(fit['ssr'], 5)} (mol/L)^2, estimated standard deviation "
                            f"{fmt(fit['sigma'], 4)} mol/L")
     else:
         fit["residual"] = "no estimate"
+    for key, default in (("lack_of_fit", {}), ("starts", []), ("rivals", []), ("suggestions", []),
+                         ("poorly_determined", []), ("residual_summary", []), ("profile_check", {})):
+        fit.setdefault(key, default)
     names = [p["path"].split(".", 1)[1] for p in fit.get("parameters", [])]
     fit["names"] = names
     corr = fit.get("correlation") or []
     fit["correlation_rows"] = [{"name": n, "values": row} for n, row in zip(names, corr)] if len(names) > 1 else []
+    starts = fit["starts"]
+    ok = [r for r in starts if r.get("ssr") is not None]
+    fit["starts_line"] = (f"Starting points: {len(ok)} of {len(starts)} converged, "
+                          f"{sum(1 for r in starts if r.get('best'))} reached the best fit." if starts else "")
+    sv = fit.get("singular_values") or []
+    fit["singular_line"] = ", ".join(f"{v / sv[0]:.2g}" for v in sv) + " (relative to the largest)" if sv else "none"
+    scale = 1.0 if known else (fit.get("sigma") or 1.0)
+    fit["residual_rows"] = [{**r, "rms": r["rms"] / scale, "mean": r["mean"] / scale} for r in fit["residual_summary"]]
+    for r in fit["rivals"]:
+        test = r.get("test") or {}
+        r["test_line"] = (nested_verdict(test) if test.get("test") else
+                          ("not nested" if r.get("nested") is False else ""))
     return fit
 
 

@@ -47,6 +47,7 @@ def summary(optimum: dict | None, window=None, sweep: dict | None = None, networ
         out["headline"] = "No operating point within the decision ranges meets every limit (infeasible)."
     else:
         out["headline"] = f"The optimization did not give an operating point ({status})."
+    stops += [w for w in optimum.get("warnings", []) if w.startswith("EXTRAPOLATED KINETICS")]
     if status == st.UNVERIFIED:
         stops.append("NOT VERIFIED: " + (optimum.get("message") or "the re-simulation disagrees with the model"))
     elif status == st.INFEASIBLE:

@@ -244,12 +244,20 @@ def fit_summary(result) -> str:
                "and Ea (centred Arrhenius)")
     dof = f"{result.n_data} values, {result.dof} degrees of freedom"
     if result.chi_square is not None:
-        from scipy import stats
-        p_value = float(stats.chi2.sf(result.chi_square, result.dof))
+        p_value = result.lack_of_fit.get("p_value")
         out.append(f"  weighted SSR (chi-square) {fmt(result.chi_square, 5)}, {dof}, P(chi2 > SSR) = {p_value:.3g}")
     else:
         out.append(f"  SSR {fmt(result.ssr, 6)} (mol/L)^2, {dof}; estimated standard deviation "
                    f"{fmt(result.sigma, 4)} mol/L")
+    if result.residual_summary:
+        out.append("  residuals (in standard deviations): " + ", ".join(
+            f"{r['species']} RMS {r['rms'] / (1 if result.chi_square is not None else (result.sigma or 1)):.2f} "
+            f"mean {r['mean'] / (1 if result.chi_square is not None else (result.sigma or 1)):+.2f}"
+            for r in result.residual_summary))
+    if result.starts:
+        ok = [r for r in result.starts if r.get("ssr") is not None]
+        best = sum(1 for r in result.starts if r.get("best"))
+        out.append(f"  starts: {len(ok)} of {len(result.starts)} converged, {best} reached the best fit")
     if result.correlation and len(result.correlation) > 1:
         names = [p.path.split(".", 1)[1] for p in result.parameters]
         pairs = [(abs(result.correlation[i][j]), names[i], names[j], result.correlation[i][j])
@@ -267,5 +275,20 @@ def fit_summary(result) -> str:
                    "sampling interval")
     for w in result.warnings:
         out.append(f"  warning: {w}")
+    for t in result.suggestions:
+        out.append(f"  to determine {t}")
+    if result.rivals:
+        out.append("  rival networks (same data): " + "; ".join(_rival_line(r) for r in result.rivals))
     out.append(CAUTION)
     return "\n".join(out)
+
+
+def _rival_line(r: dict) -> str:
+    if r.get("ssr") is None:
+        return f"{r['network']}: {r['status']}"
+    text = f"{r['network']}: SSR {fmt(r['ssr'], 5)}, {r['p']} parameters, AICc {r['aicc']:.1f}, weight {r['weight']:.3g}"
+    test = r.get("test") or {}
+    if test.get("test"):
+        from tubeyield.report.html import nested_verdict
+        text += f"; {nested_verdict(test)}"
+    return text

@@ -111,6 +111,7 @@ class BundledIpopt:
         # Last multipliers per structure (shared by the solvers built for it with different options), for warm starts.
         self._multipliers: OrderedDict[tuple, tuple] = OrderedDict()
         self._written: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
+        self._last: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()   # model -> (written, built) last used
         self.last_timing: dict[str, float] = {}
         self.last_stats: dict = {}
 
@@ -187,6 +188,7 @@ class BundledIpopt:
         while len(self._multipliers) > self.max_cached:
             self._multipliers.popitem(last=False)
 
+        self._last[model] = (written, built)
         status_text = stats.get("return_status", "unknown")
         solver_status, condition = termination_of(status_text)
         if load_solutions:
@@ -208,6 +210,25 @@ class BundledIpopt:
         results.problem.number_of_constraints = len(written.constraints)
         results.problem.lower_bound = results.problem.upper_bound = self.last_stats["objective"]
         return results
+
+
+    def constraint_jacobian(self, model):
+        """The Jacobian of every constraint body with respect to the variables Ipopt optimized in the last solve of
+        `model`, at its current values, evaluated exactly by the solver's own derivative function (casadi's
+        nlp_jac_g, SX): (scipy CSR matrix, constraints in NL order, the free variables in NL order). For the
+        sensitivities of a solution to its parameters (the implicit function theorem on the equality
+        constraints)."""
+        from scipy import sparse
+        last = self._last.get(model)
+        if last is None:
+            raise SolverUnavailable(f"{NAME}: constraint_jacobian needs a solve of this model first")
+        written, built = last
+        values = np.array([v.value if v.value is not None else _interior(v) for v in written.variables], dtype=float)
+        fn = built.solver.get_function("nlp_jac_g")
+        J = fn(values[built.free], values[built.pinned])[1]
+        rows, cols = J.sparsity().get_triplet()
+        matrix = sparse.csr_matrix((np.array(J.nonzeros(), dtype=float), (rows, cols)), shape=J.shape)
+        return matrix, list(written.constraints), [written.variables[i] for i in built.free]
 
 
 # ---------------------------------------------------------------------------------------------------------- writing
@@ -289,10 +310,9 @@ def _constraint_bounds_and_key(text: str, n_var: int, n_con: int):
 # --------------------------------------------------------------------------------------------------------- building
 
 
-def _build(written: _Written, pinned_mask: np.ndarray, opts: dict, tee: bool) -> _Built:
+def _import(written: _Written):
+    """casadi's reading of the NL text: (builder, variables, constraint expressions), in NL order."""
     import casadi
-
-    t0 = time.perf_counter()
     builder = casadi.NlpBuilder()
     fd, path = tempfile.mkstemp(suffix=".nl")
     try:
@@ -306,8 +326,14 @@ def _build(written: _Written, pinned_mask: np.ndarray, opts: dict, tee: bool) ->
                                     f"expressions, min/max, if-then-else): {str(exc).splitlines()[-1]}") from None
     finally:
         os.unlink(path)
-    xs = list(builder.x)           # SWIG lists are copied on every access: read once
-    gs = list(builder.g)
+    return builder, list(builder.x), list(builder.g)     # SWIG lists are copied on every access: read once
+
+
+def _build(written: _Written, pinned_mask: np.ndarray, opts: dict, tee: bool) -> _Built:
+    import casadi
+
+    t0 = time.perf_counter()
+    builder, xs, gs = _import(written)
     free = np.nonzero(~pinned_mask)[0]
     pinned = np.nonzero(pinned_mask)[0]
     nlp = {"x": casadi.vertcat(*[xs[i] for i in free]),

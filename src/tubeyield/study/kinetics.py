@@ -44,8 +44,12 @@ class VantHoff:
 FRACTIONAL_ORDER_DELTA = 1e-9     # mol/m^3
 
 
-def power_factor(c, n: float):
-    """c^n for the rate laws: exact for n = 0, 1 and n >= 1, regularized for 0 < n < 1 (see FRACTIONAL_ORDER_DELTA)."""
+def power_factor(c, n):
+    """c^n for the rate laws: exact for n = 0, 1 and n >= 1, regularized for 0 < n < 1 (see FRACTIONAL_ORDER_DELTA).
+    An order that is itself a model variable (a fit that estimates it) takes the regularized form throughout:
+    smooth in n and c, and within (n - 1) delta / c of c^n for n > 1 too."""
+    if not isinstance(n, (int, float)):
+        return c * (c + FRACTIONAL_ORDER_DELTA) ** (n - 1.0)
     if n == 0:
         return 1.0
     if n == 1:
@@ -59,7 +63,7 @@ def concentration_product(conc: dict, orders) -> object:
     """prod_i c_i^n_i over (species, order) pairs, with power_factor for each factor."""
     value = 1.0
     for s, n in orders:
-        if n == 0:
+        if isinstance(n, (int, float)) and n == 0:
             continue
         value = value * power_factor(conc[s], n)
     return value

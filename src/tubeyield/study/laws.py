@@ -92,6 +92,11 @@ class RateLaw:
         """The rate law in words for `check` (the forward orders are shown beside it)."""
         return self.name
 
+    def study_keys(self) -> dict:
+        """The law's own keys as a study file writes them (quantities as strings with units), for writing a
+        network back (a fitted network for `include`)."""
+        return {}
+
     def constant_table(self) -> list[tuple[str, float, str]]:
         """The law's constants at T_ref as (sweep path, value, unit) for reports: concentration powers in mol/L,
         energies in kJ/mol (from paths(), so a new law's constants are shown without more code)."""
@@ -177,6 +182,11 @@ class Reversible(RateLaw):
     def paths(self):
         return {"K": LawPath("lnK", "constant", power=self.dn, log=True)}
 
+    def study_keys(self) -> dict:
+        (_, K, unit), = self.constant_table()
+        return {"K": f"{K:.8g} {unit}".strip() if unit else float(f"{K:.8g}"),
+                "reverse_orders": dict(self.reverse_orders)}
+
 
 class AdsorbingLaw(RateLaw):
     """What the adsorption laws share: adsorption terms (species, K_i(T)) in `self.terms`, the Langmuir denominator
@@ -197,6 +207,10 @@ class AdsorbingLaw(RateLaw):
     def paths(self):
         return adsorption_paths(self.terms)
 
+    def study_keys(self) -> dict:
+        return {"adsorption": {s: {"K": f"{math.exp(ads.ln_K_ref) * 1e3:.8g} L/mol", "dH": f"{ads.dH / 1e3:.8g} kJ/mol"}
+                               for s, ads in self.terms}}
+
 
 @dataclass(frozen=True)
 class Adsorption(AdsorbingLaw):
@@ -215,6 +229,9 @@ class Adsorption(AdsorbingLaw):
 
     def rate(self, k, forward, conc, T, mx, dH):
         return k * forward / self.denominator(conc, T, mx) ** self.power
+
+    def study_keys(self) -> dict:
+        return {**super().study_keys(), "denominator_power": self.power}
 
 
 

@@ -19,7 +19,7 @@ from tubeyield.study.read_fit import read_experiments, read_fit
 from tubeyield.study.read_sweep import read_sweep
 from tubeyield.study import caps
 from tubeyield.study.kinetics import GAS_CONSTANT
-from tubeyield.study.schema import Feed, Reactor, SourceFile, Species, Study
+from tubeyield.study.schema import Feed, Reactor, Rival, SourceFile, Species, Study
 from tubeyield.study.toml import Table, parse_toml, read_text
 
 NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9 _.+()-]{0,99}$")
@@ -59,7 +59,11 @@ def study_from_sources(document: str, *, need=OPTIONAL_SECTIONS) -> Study:
             raise TypeError("unexpected types")
     except (ValueError, KeyError, TypeError) as exc:
         raise StudyError("sources", f"a study document written by tubeyield ({exc})") from None
-    return study_from_text(text, path=Path(name).name, includes=dict(includes), need=need)
+    study = study_from_text(text, path=Path(name).name, includes=dict(includes), need=need)
+    if isinstance(doc.get("kinetics"), dict):
+        from tubeyield.study.read_kinetics import fitted_from_dict, with_kinetics
+        study = with_kinetics(study, fitted_from_dict(doc["kinetics"], "sources"))
+    return study
 
 
 TOP_KEYS = ("study", "species", "reaction", "feed", "reactor", "operate", "goal", "front", "window", "sweep", "numerics",
@@ -189,15 +193,15 @@ def study_from_dict(doc: dict, *, path: str = "", source: str = "", includes=Non
 
     data_files: list[SourceFile] = []
 
-    def read_data(ref: str, key: str) -> tuple[str, str]:
+    def read_data(ref: str, key: str, what: str = "measurement file") -> tuple[str, str]:
         if includes is None:
-            raise StudyError(key, "a study read from a file (measurement files are relative to its folder)")
+            raise StudyError(key, f"a study read from a file ({what}s are relative to its folder)")
         if isinstance(includes, dict):
             if ref not in includes:
-                raise StudyError(key, f"the text of the measurement file {ref!r}; it is missing")
+                raise StudyError(key, f"the text of the {what} {ref!r}; it is missing")
             where, text = ref, includes[ref]
         else:
-            where, text = includes(ref, key, "measurement file")
+            where, text = includes(ref, key, what)
         if all(f.ref != ref for f in data_files):
             data_files.append(SourceFile(ref, text))
         return where, text
@@ -206,10 +210,15 @@ def study_from_dict(doc: dict, *, path: str = "", source: str = "", includes=Non
         runs = read_experiments(top.take("experiment", [], types=list, what="[[experiment]] entries"), symbols,
                                 read_data)
         for e in runs:
-            if e.vessel == "plug" and feed.phase == "gas":
-                raise StudyError(f"experiment.{e.id}.vessel", "'batch', or 'plug' for a liquid study only (a gas "
-                                                              "changes volume as it reacts; not fitted yet)")
-        return runs, read_fit(top.table("fit", None), tuple(reactions), runs, symbols)
+            if e.vessel != "batch" and feed.phase == "gas":
+                raise StudyError(f"experiment.{e.id}.vessel", f"'batch', or '{e.vessel}' for a liquid study only (a "
+                                                              "gas changes volume as it reacts; not fitted yet)")
+
+        def read_rival(ref: str, key: str) -> Rival:
+            where, text = read_data(ref, key, "rival network file")
+            return _rival(ref, where, text, runs)
+
+        return runs, read_fit(top.table("fit", None), tuple(reactions), runs, symbols, read_rival)
 
     experiments, fit = optional("fit", read_lab) or ((), None)
     front = optional("front", lambda: read_front(top.table("front", None), symbols))
@@ -227,6 +236,28 @@ def study_from_dict(doc: dict, *, path: str = "", source: str = "", includes=Non
                   description=description, path=path, source=source, includes=tuple(sources + data_files))
     sweep = optional("sweep", lambda: read_sweep(top.table("sweep", None), study))
     return replace(study, sweep=sweep, section_errors=tuple(deferred))
+
+
+def _rival(ref: str, where: str, text: str, runs) -> Rival:
+    """A rival network file ([fit] rivals): species and reactions only, holding every species the experiments start
+    with or measure."""
+    try:
+        net = Table(parse_toml(text), "")
+        species = read_species(net.take("species", {}, types=dict, what="a table of species"), "species")
+        raw = read_reactions(net.take("reaction", [], types=list, what="[[reaction]] entries"))
+        net.close(("species", "reaction"))
+        symbols = {s.symbol for s in species}
+        if not raw:
+            raise StudyError("reaction", "at least one [[reaction]] in a rival network")
+        needed = sorted({s for e in runs for s, _ in e.series} | {s for e in runs for s, v in e.start if v})
+        missing = [s for s in needed if s not in symbols]
+        if missing:
+            raise StudyError("species", "every species the experiments start with or measure; missing "
+                                        + ", ".join(missing))
+        reactions = tuple(resolve_reaction(r, symbols, i) for i, r in enumerate(raw))
+    except StudyError as exc:
+        raise exc.in_file(where) from None
+    return Rival(ref, tuple(species), reactions)
 
 
 def check_damkohler(reactions, feed: Feed, decisions, goal) -> None:

@@ -2,13 +2,21 @@
 
 A measurement file is CSV with units in the header, e.g.
 
+    # lines starting with '#' are comments
     t [min], A [mol/L], B [mol/L]
     0.5, 0.81, 0.20
     1.0, 0.62,
 
-The first column is the time (batch) or residence time (plug flow); every other column is a species of the network,
-or `run` to hold several runs in one file (`run = "..."` in the experiment picks its rows). Empty cells are samples
-not taken. Units are read by pint; times must increase within a run.
+The first column is the time (batch) or residence time (plug flow, stirred tank); every other column is a species of
+the network, or `run` to hold several runs in one file (`run = "..."` in the experiment picks its rows). Empty cells
+are samples not taken. Units are read by pint; times must increase within a batch or plug-flow run (a stirred tank's
+rows are separate steady states, in any order, replicates allowed).
+
+Parameters a fit can estimate (`[fit] estimate`), by the sweep paths:
+  reaction.<id>.k          rate constant at T_ref            reaction.<id>.Ea        activation energy
+  reaction.<id>.dH         heat of reaction (the equilibrium's van 't Hoff term of a reversible step)
+  reaction.<id>.<law>      a constant of the rate law (K of a reversible step, K.<s> and dH.<s> of adsorption)
+  reaction.<id>.order.<s>  a forward order
 """
 
 from __future__ import annotations
@@ -22,11 +30,13 @@ from tubeyield.errors import StudyError
 from tubeyield.study import caps
 from tubeyield.study.schema import Experiment, FitSpec, Reaction
 from tubeyield.study.toml import Table, number
-from tubeyield.study.units import parse_quantity, to_si, ureg
+from tubeyield.study.units import MAGNITUDE_CAPS, parse_quantity, to_si, ureg
 
-VESSELS = ("batch", "plug")          # plug: a liquid plug-flow run sampled at residence times (constant density)
+# plug: a liquid plug-flow run sampled at residence times (constant density: the batch balance in residence time);
+# stirred: a liquid stirred tank, one steady state per residence time
+VESSELS = ("batch", "plug", "stirred")
 _HEADER = re.compile(r"^\s*([A-Za-z_][\w.+\-()]*)\s*(?:\[(.*)\])?\s*$")
-ESTIMABLE = ("k", "Ea")              # reaction.<id>.<name> paths a fit can estimate (this release)
+MAX_PROGRAMME = 1000                 # points of a temperature programme
 
 
 def read_experiments(entries: list, symbols: set[str], reader) -> tuple[Experiment, ...]:
@@ -43,9 +53,7 @@ def read_experiments(entries: list, symbols: set[str], reader) -> tuple[Experime
         vessel = t.take("vessel", "batch", types=str)
         if vessel not in VESSELS:
             raise StudyError(t.key("vessel"), f"one of {', '.join(VESSELS)}, got {vessel!r}")
-        T = to_si(t.take("T", what="the experiment's temperature, e.g. '340 K'"), "temperature", t.key("T"))
-        if T <= 0:
-            raise StudyError(t.key("T"), "an absolute temperature above 0 K")
+        T, programme = _temperature(t, vessel)
         start_t = t.table("start", what="the concentrations at time zero (batch) or at the inlet (plug), "
                                         "e.g. { A = '1 mol/L' }")
         start = {}
@@ -62,16 +70,52 @@ def read_experiments(entries: list, symbols: set[str], reader) -> tuple[Experime
         run = t.take("run", None, types=str)
         t.close(("id", "vessel", "T", "start", "data", "run"))
         where, text = reader(ref, t.key("data"))
-        times, series = read_measurements(text, where, symbols, run)
-        out.append(Experiment(eid, vessel, T, tuple(start.items()), times, series, ref))
+        times, series = read_measurements(text, where, symbols, run, ordered=vessel != "stirred")
+        if vessel == "stirred" and any(x <= 0 for x in times):
+            raise StudyError("tau", "positive residence times for a stirred-tank run (each row is a steady state)",
+                             file=where)
+        out.append(Experiment(eid, vessel, T, tuple(start.items()), times, series, ref, programme))
     caps.at_most(len(out), caps.MAX_EXPERIMENTS, "experiment", "a number of experiments")
     return tuple(out)
 
 
-def read_measurements(text: str, where: str, symbols: set[str], run: str | None):
-    """(times in s, ((species, values in mol/m^3 with NaN where not sampled), ...)) from a measurement CSV."""
+def _temperature(t: Table, vessel: str) -> tuple[float, tuple]:
+    """The experiment's T: a quantity, or a programme [[time, temperature], ...] (batch and plug flow), followed
+    piecewise linearly and held after its last point. Returns (T, programme); for a programme T is the
+    time-weighted reciprocal mean over its span (where the fit centres the Arrhenius terms)."""
+    value = t.take("T", what="the experiment's temperature, e.g. '340 K', or a programme [['0 min', '330 K'], "
+                             "['20 min', '350 K']]")
+    if not isinstance(value, list):
+        T = to_si(value, "temperature", t.key("T"))
+        if T <= 0:
+            raise StudyError(t.key("T"), "an absolute temperature above 0 K")
+        return T, ()
+    if vessel == "stirred":
+        raise StudyError(t.key("T"), "one temperature for a stirred-tank run (its rows are steady states)")
+    if not 2 <= len(value) <= MAX_PROGRAMME:
+        raise StudyError(t.key("T"), f"a programme of 2 to {MAX_PROGRAMME} [time, temperature] points")
+    pts = []
+    for i, pair in enumerate(value):
+        key = f"{t.key('T')}[{i}]"
+        if not (isinstance(pair, list) and len(pair) == 2):
+            raise StudyError(key, "a [time, temperature] pair such as ['10 min', '345 K']")
+        tt, TT = to_si(pair[0], "time", f"{key}[0]"), to_si(pair[1], "temperature", f"{key}[1]")
+        if TT <= 0:
+            raise StudyError(f"{key}[1]", "an absolute temperature above 0 K")
+        if tt < 0 or (pts and tt <= pts[-1][0]):
+            raise StudyError(f"{key}[0]", "times from 0 that increase from point to point")
+        pts.append((tt, TT))
+    span = pts[-1][0] - pts[0][0]
+    # reciprocal mean of T over the programme (trapezoid rule on 1/T between the points)
+    inv = sum(0.5 * (1 / a[1] + 1 / b[1]) * (b[0] - a[0]) for a, b in zip(pts[:-1], pts[1:])) / span
+    return 1.0 / inv, tuple(pts)
+
+
+def read_measurements(text: str, where: str, symbols: set[str], run: str | None, *, ordered: bool = True):
+    """(times in s, ((species, values in mol/m^3 with NaN where not sampled), ...)) from a measurement CSV. With
+    `ordered`, times must increase (batch and plug-flow runs); otherwise rows are separate steady states."""
     rows = list(csv.reader(io.StringIO(text)))
-    rows = [r for r in rows if any(c.strip() for c in r)]
+    rows = [r for r in rows if any(c.strip() for c in r) and not r[0].lstrip().startswith("#")]
     if len(rows) < 2:
         raise StudyError("", "a header row and at least one row of measurements", file=where)
     columns = []
@@ -120,9 +164,12 @@ def read_measurements(text: str, where: str, symbols: set[str], run: str | None)
         if t is None:
             raise StudyError(tkey, "a time in every row", file=where)
         t *= time_factor
+        if t > MAGNITUDE_CAPS["time"]:
+            raise StudyError(tkey, f"a time of at most {MAGNITUDE_CAPS['time']:g} s (tubeyield's cap), got "
+                                   f"{row[tc].strip()}", file=where)
         if t < 0:
             raise StudyError(tkey, f"a time of at least 0, got {row[tc].strip()}", file=where)
-        if times and t <= times[-1]:
+        if ordered and times and t <= times[-1]:
             raise StudyError(tkey, f"times that increase from row to row, got {row[tc].strip()} after "
                                    f"{times[-1] / time_factor:g}", file=where)
         times.append(t)
@@ -131,6 +178,10 @@ def read_measurements(text: str, where: str, symbols: set[str], run: str | None)
             if v is not None and v < 0:
                 raise StudyError(f"row {n}, column {j + 1}", f"a concentration of at least 0, got {row[j].strip()}",
                                  file=where)
+            if v is not None and v * factor > MAGNITUDE_CAPS["concentration"]:
+                raise StudyError(f"row {n}, column {j + 1}", "a concentration of at most "
+                                 f"{MAGNITUDE_CAPS['concentration'] / 1000:g} mol/L (tubeyield's cap), got "
+                                 f"{row[j].strip()}", file=where)
             values[s].append(math.nan if v is None else v * factor)
     if not times:
         raise StudyError("run", f"rows of run {run!r}; the file has none", file=where)
@@ -164,23 +215,64 @@ def _cell(text: str, key: str, where: str) -> float | None:
     return v
 
 
+def fit_path(path, reactions, key: str) -> tuple[str, str]:
+    """(reaction id, name) of an estimable path 'reaction.<id>.<name>' (module docstring); a StudyError naming
+    `key` otherwise."""
+    by_id = {r.id: r for r in reactions}
+    parts = path.split(".") if isinstance(path, str) else []
+    if len(parts) < 3 or parts[0] != "reaction" or parts[1] not in by_id:
+        raise StudyError(key, f"a path 'reaction.<id>.<k|Ea|dH|law constant|order.<species>>' with an id of the "
+                              f"network ({', '.join(sorted(by_id))}); got {path!r}")
+    r = by_id[parts[1]]
+    name = ".".join(parts[2:])
+    law_paths = r.law.paths()
+    if name in ("k", "Ea") or name in law_paths:
+        return r.id, name
+    if name == "dH":
+        if not r.reversible:
+            raise StudyError(key, f"'dH' only for a reversible step (its equilibrium's temperature dependence); "
+                                  f"reaction {r.id!r} is not reversible, and a fit of concentrations does not see "
+                                  "its heat")
+        return r.id, name
+    if name.startswith("order.") and name[len("order."):] in dict(r.orders):
+        return r.id, name
+    choices = ["k", "Ea"] + (["dH"] if r.reversible else []) + list(law_paths) + \
+        [f"order.{s}" for s, _ in r.orders]
+    raise StudyError(key, f"one of {', '.join(choices)} after 'reaction.{r.id}.', got {name!r}")
+
+
+def _bound_to_si(value, name: str, reaction: Reaction, key: str) -> float:
+    from tubeyield.study.units import rate_constant_to_si
+    if name == "k":
+        return rate_constant_to_si(value, reaction.k_power, key)
+    if name in ("Ea", "dH"):
+        return to_si(value, "molar_energy", key)
+    if name.startswith("order."):
+        return number(value, key)
+    lp = reaction.law.paths()[name]
+    if lp.kind == "constant":
+        return rate_constant_to_si(value, lp.power or 0.0, key, per="none")
+    return to_si(value, lp.kind, key)
+
+
+def _positive(name: str, reaction: Reaction) -> bool:
+    """Whether the parameter is estimated as a logarithm (rate constants and positive law constants)."""
+    return name == "k" or (name in reaction.law.paths() and reaction.law.paths()[name].log)
+
+
 def read_fit(t: Table | None, reactions: tuple[Reaction, ...], experiments: tuple[Experiment, ...],
-             symbols: set[str]) -> FitSpec | None:
-    """[fit]: estimate = ['reaction.<id>.k', 'reaction.<id>.Ea', ...], optional bounds, the error model."""
+             symbols: set[str], read_rival=None) -> FitSpec | None:
+    """[fit]: estimate = ['reaction.<id>.k', ...], optional bounds, the error model, starts, rival networks.
+    `read_rival(ref, key)` -> Rival reads a rival network file (load.py)."""
     if t is None:
         return None
     if not experiments:
         raise StudyError("experiment", "at least one [[experiment]] with measurements for [fit]")
-    ids = {r.id for r in reactions}
     paths = t.take("estimate", types=list, what="a list of parameter paths such as 'reaction.main.k'")
     if not paths:
         raise StudyError(t.key("estimate"), "at least one parameter path to estimate")
-    for i, p in enumerate(paths):
-        key = f"{t.key('estimate')}[{i}]"
-        parts = p.split(".") if isinstance(p, str) else []
-        if len(parts) != 3 or parts[0] != "reaction" or parts[1] not in ids or parts[2] not in ESTIMABLE:
-            raise StudyError(key, f"a path 'reaction.<id>.<{'|'.join(ESTIMABLE)}>' with an id of the network "
-                                  f"({', '.join(sorted(ids))}); got {p!r}")
+    by_id = {r.id: r for r in reactions}
+    parsed = [fit_path(p, reactions, f"{t.key('estimate')}[{i}]") for i, p in enumerate(paths)]
     if len(set(paths)) != len(paths):
         raise StudyError(t.key("estimate"), "each path once")
     bounds_t = t.table("bounds", {}, what="a table of [low, high] per estimated path")
@@ -191,15 +283,12 @@ def read_fit(t: Table | None, reactions: tuple[Reaction, ...], experiments: tupl
             raise StudyError(key, "a path listed in estimate")
         if not (isinstance(body, list) and len(body) == 2):
             raise StudyError(key, "[low, high], e.g. ['20 kJ/mol', '150 kJ/mol']")
-        rid, name = p.split(".")[1:]
-        r = next(r for r in reactions if r.id == rid)
-        if name == "Ea":
-            low, high = (to_si(v, "molar_energy", key) for v in body)
-        else:
-            from tubeyield.study.units import rate_constant_to_si
-            low, high = (rate_constant_to_si(v, r.k_power, key) for v in body)
-            if low <= 0:
-                raise StudyError(key, "positive bounds for a rate constant (it is estimated as its logarithm)")
+        rid, name = parsed[paths.index(p)]
+        r = by_id[rid]
+        low, high = (_bound_to_si(v, name, r, key) for v in body)
+        if _positive(name, r) and low <= 0:
+            raise StudyError(key, "positive bounds for a rate or equilibrium constant (it is estimated as its "
+                                  "logarithm)")
         if not low < high:
             raise StudyError(key, f"low below high, got {body!r}")
         bounds.append((p, (low, high)))
@@ -213,6 +302,8 @@ def read_fit(t: Table | None, reactions: tuple[Reaction, ...], experiments: tupl
             raise StudyError(key, f"a measured species ({', '.join(sorted(measured))}), got {s!r}")
         if isinstance(v, str) and v.strip().endswith("%"):
             rel = number(float(v.strip()[:-1]) if _is_number(v.strip()[:-1]) else math.nan, key, low=0.0) / 100
+            if rel <= 0:
+                raise StudyError(key, "a positive relative standard deviation")
             error.append((s, (0.0, rel)))
         else:
             sd = to_si(v, "concentration", key)
@@ -224,13 +315,27 @@ def read_fit(t: Table | None, reactions: tuple[Reaction, ...], experiments: tupl
         missing = sorted(measured - {s for s, _ in error})
         raise StudyError(err_t.path, f"an error for every measured species, or none (then one common standard "
                                      f"deviation is estimated from the residuals); missing: {', '.join(missing)}")
-    n_data = sum(1 for e in experiments for _, v in e.series for x in v if not math.isnan(x))
+    n_data = sum(1 for e in experiments for _, v in e.series for i, x in enumerate(v)
+                 if not math.isnan(x) and e.times[i] > 0)
     if n_data <= len(paths):
         raise StudyError(t.key("estimate"), f"fewer parameters than measured values; {len(paths)} parameter(s) "
-                                            f"and {n_data} value(s)")
-    elements = int(number(t.take("elements", 4), t.key("elements"), integer=True, low=1))
-    t.close(("estimate", "bounds", "error", "elements"))
-    return FitSpec(tuple(paths), tuple(bounds), tuple(error), elements)
+                                            f"and {n_data} value(s) after time zero")
+    elements = int(number(t.take("elements", 1), t.key("elements"), integer=True, low=1))
+    caps.at_most(elements, 64, t.key("elements"), "a number of elements per sampling interval")
+    starts = int(number(t.take("starts", 4), t.key("starts"), integer=True, low=1))
+    caps.at_most(starts, caps.MAX_STARTS, t.key("starts"), "a number of starting points")
+    rival_refs = t.take("rivals", [], types=list, what="a list of rival network files")
+    rivals = []
+    for i, ref in enumerate(rival_refs):
+        key = f"{t.key('rivals')}[{i}]"
+        if not isinstance(ref, str):
+            raise StudyError(key, f"a network file path, got {ref!r}")
+        if read_rival is None:
+            raise StudyError(key, "a study read from a file (rival networks are relative to its folder)")
+        rivals.append(read_rival(ref, key))
+    caps.at_most(len(rivals), 20, t.key("rivals"), "a number of rival networks")
+    t.close(("estimate", "bounds", "error", "elements", "starts", "rivals"))
+    return FitSpec(tuple(paths), tuple(bounds), tuple(error), elements, starts, tuple(rivals))
 
 
 def _is_number(text: str) -> bool:

@@ -15,15 +15,18 @@ def read_sweep(t: Table | None, study: Study) -> SweepSpec | None:
     if t is None:
         return None
     from tubeyield.study.variation import parse_variation
-    vary_t = t.table("vary", what="a table mapping study paths to values or distributions")
+    from_fit = t.take("fit_uncertainty", False, types=bool)
+    vary_t = t.table("vary", {}, what="a table mapping study paths to values or distributions")
     vary = tuple(parse_variation(path, body, f"{vary_t.key(path)}", study) for path, body in vary_t.data.items())
     vary_t.seen.update(vary_t.data)
-    if not vary:
-        raise StudyError(vary_t.path, "at least one varied path, e.g. 'reaction.over.Ea' = { normal = [...] }")
-    sampled = [v for v in vary if v.distribution]
+    if not vary and not from_fit:
+        raise StudyError(vary_t.path or "sweep.vary", "at least one varied path, e.g. 'reaction.over.Ea' = "
+                                                      "{ normal = [...] }, or fit_uncertainty = true")
+    sampled = [v for v in vary if v.distribution] or from_fit
     samples = int(number(t.take("samples", 0), t.key("samples"), integer=True, low=0))
     if sampled and samples < 1:
-        raise StudyError(t.key("samples"), "the number of samples (>= 1) for the distributions in 'vary'")
+        raise StudyError(t.key("samples"), "the number of samples (>= 1) for the distributions in 'vary' and the "
+                                           "fit's uncertainty")
     caps.at_most(samples, caps.MAX_SCENARIOS, t.key("samples"), "a number of samples")
     combinations = 1
     for v in vary:
@@ -67,4 +70,4 @@ def read_sweep(t: Table | None, study: Study) -> SweepSpec | None:
         raise StudyError(t.key("candidates"), "named operating points to evaluate (run = 'evaluate'), or a study "
                                               "whose decisions are all fixed")
     t.close()
-    return SweepSpec(vary, samples, seed, run, time_limit, share, tuple(candidates))
+    return SweepSpec(vary, samples, seed, run, time_limit, share, tuple(candidates), from_fit)

@@ -171,6 +171,7 @@ class SweepSpec:
     time_limit: float = 300.0     # seconds per scenario
     share: float = 0.95           # robustness: share of samples in which every limit must hold
     candidates: tuple[tuple[str, tuple[tuple[str, float], ...]], ...] = ()   # named operating points (SI)
+    fit_uncertainty: bool = False  # draw the fitted parameters jointly from the fit given with --kinetics
 
 
 @dataclass(frozen=True)
@@ -193,26 +194,88 @@ class SourceFile:
 
 @dataclass(frozen=True)
 class Experiment:
-    """One lab run: a batch (times) or a liquid plug-flow run (residence times), at one temperature, from known
-    start (or inlet) concentrations, with its measurements (SI; NaN where a species was not sampled)."""
+    """One lab run: a batch (samples over time), a liquid plug-flow run (samples at residence times) or a liquid
+    stirred tank (one steady state per residence time), from known start (or inlet) concentrations, with its
+    measurements (SI; NaN where a species was not sampled). The temperature is constant, or a programme of
+    (time, temperature) points followed piecewise linearly and held after the last (batch and plug flow)."""
     id: str
-    vessel: str                                       # "batch" or "plug"
-    T: float                                          # K
+    vessel: str                                       # "batch", "plug" or "stirred"
+    T: float                                          # K: the temperature, or the programme's reciprocal mean
     start: tuple[tuple[str, float], ...]              # species -> mol/m^3 at time zero / the inlet
-    times: tuple[float, ...]                          # s, increasing
+    times: tuple[float, ...]                          # s, increasing (stirred: the residence time of each row)
     series: tuple[tuple[str, tuple[float, ...]], ...]  # species -> mol/m^3 at each time
     data: str = ""                                    # the measurement file as the study names it
+    programme: tuple[tuple[float, float], ...] = ()   # ((t in s, T in K), ...); empty: constant T
+
+    def temperature(self, t: float) -> float:
+        """T at time t (s): the constant, or the programme interpolated linearly and held past its ends."""
+        if not self.programme:
+            return self.T
+        pts = self.programme
+        if t <= pts[0][0]:
+            return pts[0][1]
+        for (t0, T0), (t1, T1) in zip(pts[:-1], pts[1:]):
+            if t <= t1:
+                return T0 + (T1 - T0) * (t - t0) / (t1 - t0)
+        return pts[-1][1]
+
+
+@dataclass(frozen=True)
+class Rival:
+    """A rival network for the same data ([fit] rivals): its file as the study names it, species and reactions."""
+    ref: str
+    species: tuple[Species, ...]
+    reactions: tuple[Reaction, ...]
 
 
 @dataclass(frozen=True)
 class FitSpec:
     """[fit]: the parameter paths to estimate, their optional SI bounds, the measurement error model
-    (species -> (absolute sd in mol/m^3, relative sd); empty: one common sd estimated from the residuals) and the
-    collocation elements per sampling interval."""
+    (species -> (absolute sd in mol/m^3, relative sd); empty: one common sd estimated from the residuals), the
+    collocation elements per sampling interval, the number of starting points, and rival networks to compare."""
     estimate: tuple[str, ...]
     bounds: tuple[tuple[str, tuple[float, float]], ...] = ()
     error: tuple[tuple[str, tuple[float, float]], ...] = ()
-    elements: int = 4
+    elements: int = 1
+    starts: int = 4
+    rivals: tuple[Rival, ...] = ()
+
+
+@dataclass(frozen=True)
+class FittedKinetics:
+    """Kinetics estimated by `tubeyield fit` and applied to a study (`--kinetics FIT.json`): the fitted values (SI,
+    by study path), and what it takes to draw from the fit's uncertainty: the estimates x in the estimation
+    coordinates and their covariance; each path's SI value is transform(G x + h) ("exp", "kilo" = 1000 times,
+    "same")."""
+    source: str                                       # the fit file as given
+    fitted_study: str                                 # the name of the study that was fitted
+    status: str
+    values: tuple[tuple[str, float], ...]
+    x: tuple[float, ...] = ()
+    cov: tuple[tuple[float, ...], ...] = ()           # empty when the fit has no covariance (not identifiable)
+    G: tuple[tuple[float, ...], ...] = ()
+    h: tuple[float, ...] = ()
+    transforms: tuple[str, ...] = ()
+    T_range: tuple[float, ...] = ()                   # K: the coldest and hottest temperature of the lab runs
+
+    @property
+    def paths(self) -> tuple[str, ...]:
+        return tuple(p for p, _ in self.values)
+
+    def values_at(self, x) -> dict[str, float]:
+        """The SI value of every fitted path at coordinates x."""
+        import numpy as np
+        r = np.asarray(self.G, dtype=float) @ np.asarray(x, dtype=float) + np.asarray(self.h, dtype=float)
+        out = {}
+        for p, v, f in zip(self.paths, r, self.transforms):
+            out[p] = float(np.exp(v)) if f == "exp" else 1000.0 * float(v) if f == "kilo" else float(v)
+        return out
+
+    def to_dict(self) -> dict:
+        return {"source": self.source, "fitted_study": self.fitted_study, "status": self.status,
+                "values": dict(self.values), "x": list(self.x), "cov": [list(r) for r in self.cov],
+                "G": [list(r) for r in self.G], "h": list(self.h), "transforms": list(self.transforms),
+                "T_range": list(self.T_range)}
 
 
 @dataclass(frozen=True)
@@ -230,6 +293,7 @@ class Study:
     numerics: Numerics = field(default_factory=Numerics)
     experiments: tuple[Experiment, ...] = ()
     fit: FitSpec | None = None
+    kinetics: FittedKinetics | None = None       # fitted kinetics applied over the study's own (--kinetics)
     description: str = ""
     path: str = ""
     source: str = ""              # the study text as read, for reports that reproduce
@@ -245,8 +309,11 @@ class Study:
         which `study.study_from_sources` rebuilds the study in memory."""
         import json
         from pathlib import PurePath
-        return json.dumps({"name": PurePath(self.path).name or "study.toml", "study": self.source,
-                           "includes": {f.ref: f.text for f in self.includes}})
+        doc = {"name": PurePath(self.path).name or "study.toml", "study": self.source,
+               "includes": {f.ref: f.text for f in self.includes}}
+        if self.kinetics is not None:
+            doc["kinetics"] = self.kinetics.to_dict()
+        return json.dumps(doc)
 
     def decision(self, name: str) -> Decision:
         for d in self.decisions:

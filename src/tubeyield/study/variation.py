@@ -13,9 +13,14 @@ Paths:
   operate.<decision>     fixes a decision (tau, T, T.<zone>, T_in, T_cool, ratio.<species>)
   species.<s>.Cp         molar heat capacity
   reactor.U              wall heat-transfer coefficient
+
+A fit may also set reaction.<id>.order.<s>, a forward order (structural in the reactor models: never swept).
 """
 
 from __future__ import annotations
+
+import math
+from dataclasses import replace
 
 from tubeyield.errors import StudyError
 from tubeyield.study.schema import Study, Variation
@@ -112,3 +117,60 @@ def parse_variation(path: str, body, key: str, study: Study) -> Variation:
         if form == "triangular" and not params[0] <= params[1] <= params[2] or form == "triangular" and params[0] == params[2]:
             raise StudyError(f"{key}.{form}", f"low <= mode <= high with low < high, got {args!r}")
     return Variation(path, distribution=form, parameters=params, unit=unit_text(args[0]))
+
+
+# ------------------------------------------------------------------------------------------------ applying them
+
+
+def apply_values(study: Study, values: dict[str, float]) -> Study:
+    """The study with each path set to its SI value. Paths were validated when the sweep was read. Factors
+    (k_factor) act last, on the values set here, whatever the order of the paths: a scenario that sets a rate
+    constant (drawn from a fit) and a catalyst activity gets k = k_drawn * factor."""
+    ordered = sorted(values.items(), key=lambda item: item[0].endswith(".k_factor"))
+    for path, v in ordered:
+        study = _apply(study, path, float(v))
+    return study
+
+
+def _apply(study: Study, path: str, v: float) -> Study:
+    parts = path.split(".")
+    if parts[0] == "reaction":
+        rid, attr = parts[1], ".".join(parts[2:])
+        if attr in ("k", "k_factor") and v <= 0:
+            raise StudyError(path, f"a positive value; sampled {v:g}")
+        rs = []
+        for r in study.reactions:
+            if rid in ("*", r.id):
+                if attr == "k":
+                    r = replace(r, k=replace(r.k, ln_k_ref=math.log(v)))
+                elif attr == "k_factor":
+                    r = replace(r, k=replace(r.k, ln_k_ref=r.k.ln_k_ref + math.log(v)))
+                elif attr == "Ea":
+                    r = replace(r, k=replace(r.k, Ea=v))
+                elif attr == "dH":
+                    r = replace(r, dH=v)
+                elif attr.startswith("order."):             # a forward order (fits only: structural in models)
+                    s = attr[len("order."):]
+                    # k keeps its SI value; its unit changes with the order, so it is shown in SI from now on
+                    r = replace(r, orders=tuple((q, v if q == s else n) for q, n in r.orders), k_unit="")
+                else:                                   # a constant of the rate law (study/laws.py)
+                    try:
+                        r = replace(r, law=r.law.with_path(attr, v))
+                    except StudyError as exc:
+                        raise StudyError(path, exc.expected) from None
+            rs.append(r)
+        return replace(study, reactions=tuple(rs))
+    if parts[0] == "feed":
+        if parts[1] == "conc":
+            conc = dict(study.feed.conc)
+            conc[parts[2]] = v
+            return replace(study, feed=replace(study.feed, conc=tuple(conc.items())))
+        return replace(study, feed=replace(study.feed, **{parts[1]: v}))
+    if parts[0] == "operate":
+        return study.with_decisions({".".join(parts[1:]): v})
+    if parts[0] == "species":
+        sp = tuple(replace(s, Cp=v) if s.symbol == parts[1] else s for s in study.species)
+        return replace(study, species=sp)
+    if path == "reactor.U":
+        return replace(study, reactor=replace(study.reactor, U=v))
+    raise KeyError(path)
