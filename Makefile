@@ -18,20 +18,23 @@ RESULTS := reports/results/oxidation
 FITTED  := --kinetics $(RESULTS)/fit.json
 
 # The whole chain on the demo: kinetics fitted to the (invented) lab runs, then the optimum, front and window on the
-# fitted network, and the report.
+# fitted network, the robust point under the fit's uncertainty and the catalyst activity, and the report.
 demo: $(VENV)/.installed
 	$(BIN)/tubeyield check $(STUDY)
 	$(BIN)/tubeyield fit $(STUDY) --save $(RESULTS)
 	$(BIN)/tubeyield optimize $(STUDY) $(FITTED) --save $(RESULTS)
 	$(BIN)/tubeyield front $(STUDY) $(FITTED) --save $(RESULTS)
 	$(BIN)/tubeyield window $(STUDY) $(FITTED) --at $(RESULTS)/optimum.json --save $(RESULTS)
+	$(BIN)/tubeyield robust $(STUDY) $(FITTED) --save $(RESULTS)
 	$(BIN)/tubeyield report $(RESULTS) --out reports/oxidation
 
 # The demo study's 200-scenario sweep over the fit's own uncertainty and the catalyst activity (resumable: run it
-# again after Ctrl-C; needs `make demo` first for the fit), its summary and the report with the sweep section.
+# again after Ctrl-C; needs `make demo` first for the fit), its summary, the robust point validated beside the nominal
+# and backed-off points, and the report with the sweep section.
 sweep: $(VENV)/.installed
 	$(BIN)/tubeyield sweep $(STUDY) $(FITTED) --store reports/results/oxidation-sweep.sqlite --resume
 	$(BIN)/tubeyield sweep-report reports/results/oxidation-sweep.sqlite --save $(RESULTS)
+	$(BIN)/tubeyield robust $(STUDY) $(FITTED) --save $(RESULTS)
 	$(BIN)/tubeyield report $(RESULTS) --out reports/oxidation
 
 test: $(VENV)/.installed

@@ -217,12 +217,16 @@ def test_ctrl_c_keeps_finished_scenarios_and_resume_completes(tmp_path, referenc
                             stderr=subprocess.PIPE, text=True, start_new_session=True, env=_env())
     try:
         _wait_for_rows(store, 5, proc)
+        running = proc.poll() is None
+        at_interrupt = _count(store)
         os.killpg(proc.pid, signal.SIGINT)
         out, err = proc.communicate(timeout=60)
     finally:
         if proc.poll() is None:
             os.killpg(proc.pid, signal.SIGKILL)
-    assert proc.returncode == 130 and "--resume" in err
+    assert proc.returncode == 130 and "--resume" in err, (
+        f"exit {proc.returncode}; running when interrupted: {running}; rows then {at_interrupt}, now "
+        f"{_count(store)}; stdout {out[-500:]!r}; stderr {err[-1500:]!r}")
     r = subprocess.run(_sweep_cmd(study, store, "--resume"), capture_output=True, text=True, timeout=600)
     assert r.returncode == 0, r.stderr
     _same(_rows(store), reference_run)

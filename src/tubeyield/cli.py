@@ -91,6 +91,23 @@ def _parser() -> argparse.ArgumentParser:
                                                   f"for include), {SAVED['fit-covariance']} and the inputs to DIR")
     ft.add_argument("--tee", action="store_true", help="show Ipopt's iteration log")
 
+    rb = sub.add_parser("robust", help="one operating point that keeps the limits in many scenarios of the "
+                                       "uncertain parameters, validated on fresh ones")
+    rb.add_argument("study")
+    rb.add_argument("--scenarios", type=int, metavar="N", help="training scenarios (default: robust.scenarios, 50)")
+    rb.add_argument("--share", type=float, metavar="P", help="share of the training scenarios whose limits must hold "
+                                                             "(default: robust.share, 1)")
+    rb.add_argument("--validation", type=int, metavar="M", help="fresh scenarios for the validation (default: "
+                                                                "robust.validation, 400)")
+    rb.add_argument("--sweep-summary", metavar="JSON", help=f"a sweep summary ({SAVED['sweep-report']}) whose "
+                                                            "backed-off point is validated beside the robust one "
+                                                            "(default: the one in --save DIR, if any)")
+    rb.add_argument("--workers", type=int, help="processes for the validation (default: all cores)")
+    _kinetics_option(rb)
+    rb.add_argument("--json", action="store_true")
+    rb.add_argument("--save", metavar="DIR", help=f"write {SAVED['robust']} and the inputs to DIR")
+    rb.add_argument("--tee", action="store_true", help="show Ipopt's iteration log")
+
     r = sub.add_parser("report", help="build the HTML report from saved results")
     r.add_argument("results", help="a directory written by --save")
     r.add_argument("--out", metavar="DIR", help="where to write the report (default: reports/<study>)")
@@ -178,7 +195,7 @@ def _check(args) -> int:
     from tubeyield import api
     from tubeyield.chemistry.network import Network
 
-    study = _load(args.study, need=("front", "window", "sweep", "fit"))
+    study = _load(args.study, need=("front", "window", "sweep", "fit", "robust"))
     report = api.check(study)
     net = Network.of(study)
     if args.json:
@@ -382,6 +399,50 @@ def _fit(args) -> int:
     return exit_code(result.status)
 
 
+def _robust(args) -> int:
+    from pathlib import Path
+
+    from tubeyield.jobs.robust import robust
+    from tubeyield.report.files import save_inputs, saved, write_json
+    from tubeyield.report.text import robust_summary
+
+    study = _load(args.study, "sweep", "the uncertain parameters ('vary' distributions or fit_uncertainty)",
+                  need=("sweep", "robust"), kinetics=args.kinetics)
+    _at_least(args.workers, "--workers", 1, "a number of processes")
+    _at_least(args.scenarios, "--scenarios", 1, "a number of scenarios")
+    _at_least(args.validation, "--validation", 1, "a number of validation scenarios")
+    summary_file = Path(args.sweep_summary) if args.sweep_summary else \
+        (saved(args.save, "sweep-report") if args.save and saved(args.save, "sweep-report").is_file() else None)
+    backed = _backed_off(summary_file) if summary_file else None
+    result = robust(study, scenarios=args.scenarios, share=args.share, validation=args.validation,
+                    backed_off=backed, tee=args.tee, workers=args.workers)
+    if args.save:
+        write_json(saved(args.save, "robust"), result.to_dict())
+        save_inputs(args.save, study)
+    if args.json:
+        _print_json(result.to_dict())
+    else:
+        print(robust_summary(result))
+    return exit_code(result.status)
+
+
+def _backed_off(path) -> dict | None:
+    """The backed-off point of a saved sweep summary, or None (a summary without one)."""
+    try:
+        doc = json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise StudyError("--sweep-summary", f"an existing sweep summary; {path} does not exist") from None
+    except (OSError, UnicodeDecodeError, ValueError) as exc:
+        raise StudyError("--sweep-summary", f"a sweep summary written by 'tubeyield sweep-report --save' ({exc})") \
+            from None
+    rows = ((doc.get("robust") or {}).get("rows") or []) if isinstance(doc, dict) else []
+    for row in rows:
+        if isinstance(row, dict) and str(row.get("label", "")).startswith("backed-off") and \
+                isinstance(row.get("point"), dict):
+            return {"label": row["label"], "point": row["point"]}
+    return None
+
+
 def _report(args) -> int:
     from tubeyield.report.html import build_report
     index = build_report(args.results, args.out)
@@ -390,4 +451,4 @@ def _report(args) -> int:
 
 
 JOBS = {"check": _check, "optimize": _optimize, "simulate": _simulate, "front": _front, "window": _window,
-        "report": _report, "sweep": _sweep, "sweep-report": _sweep_report, "fit": _fit}
+        "report": _report, "sweep": _sweep, "sweep-report": _sweep_report, "fit": _fit, "robust": _robust}

@@ -420,7 +420,8 @@ def write_report(rows, notes, out: Path, started: float, quick: bool):
             lines.append(f"| {e['species']} | {e['reactions']} | {fmt(e['seconds'])} | {e['status']} | "
                          f"{e['elements']} | {fmt(e['check'])} | {fmt(e['peak_rss_mb'])} |")
     from fit_cases import report_lines
-    lines += report_lines(by)
+    from robust_cases import report_lines as robust_lines
+    lines += report_lines(by) + robust_lines(by)
     lines += ["", "## Targets", ""] + _targets(by) + ["", "## Where targets are missed, and why", ""] + \
         _explain(by) + ["", "## Notes", ""] + [f"- {n}" for n in notes]
     (out / "index.md").write_text("\n".join(lines) + "\n")
@@ -467,7 +468,9 @@ def _targets(by) -> list:
         line("at least 5 scenario optimizations per second on 2 cores", f"{r['scenarios_per_s']:.1f}/s on "
              f"{os.cpu_count()} cores", r["scenarios_per_s"] >= 5)
     from fit_cases import targets
+    from robust_cases import targets as robust_targets
     targets(by, line)
+    robust_targets(by, line)
     if "f" in by:
         els = [e for e in by["f"]["scaling"]["elements"] if "error" not in e]
         if len(els) >= 2:
@@ -551,6 +554,9 @@ def main():
         from fit_cases import case_fits
         case_fits(rows, notes, tmp, args.quick)
         print("g, h done", flush=True)
+        from robust_cases import case_robust
+        case_robust(rows, notes, tmp, args.quick)
+        print("i done", flush=True)
         case_scaling([20, 40, 80] if args.quick else [20, 40, 80, 160, 320, 400],
                      [4, 8] if args.quick else [4, 8, 12, 16, 20], rows, tmp)
         print("f done", flush=True)

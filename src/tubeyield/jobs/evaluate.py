@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import time
 
-from tubeyield.errors import StudyError
+from tubeyield.errors import SimulationFailed, StudyError
 from tubeyield.jobs.result import Result
 from tubeyield.reactor.metrics import all_metrics
 from tubeyield.reactor.simulate import simulate
@@ -90,3 +90,63 @@ def evaluate(study: Study, values: dict) -> Result:
                   decisions, metrics, outlet, limits, [], None, {}, {"simulate": time.perf_counter() - t0},
                   message=sim.integrator, volume_m3=values["tau"] * study.feed.flow, decisions_si=dict(values),
                   profile=sim.profile())
+
+
+# ------------------------------------------------------------------------------------ a point in many scenarios
+
+
+def in_scenarios(args) -> list[tuple]:
+    """(study, point, [scenario values], tolerance) -> for each scenario (goal in display units, every limit holds,
+    [limit quantities, SI], [each limit holds]): the point simulated (rtol 1e-8) in each scenario. A limit holds when
+    it is missed by at most `tolerance` (absolute for fractions, relative to the bound otherwise, as
+    solve.multistart.violation weighs them). A point that cannot be simulated misses every limit."""
+    from tubeyield.reactor.metrics import metric_display
+    from tubeyield.study.variation import apply_values
+    study, point, scenario_values = args[:3]
+    tolerance = args[3] if len(args) > 3 else 1e-9
+    out = []
+    for values in scenario_values:
+        try:
+            sc = apply_values(study, values)
+            sim = simulate(sc, point, rtol=1e-8)
+            quantities, holds = [], []
+            for lim in sc.goal.limits:
+                if lim.metric is None:
+                    q = sim.max_temperature() if lim.sense == "<=" else sim.min_temperature()
+                    scale = lim.bound
+                else:
+                    q = sim.metric(lim.metric)
+                    scale = 1.0 if lim.metric.kind in ("conversion", "yield", "selectivity") else \
+                        max(abs(lim.bound), 1e-300)
+                miss = (q - lim.bound) if lim.sense == "<=" else (lim.bound - q)
+                quantities.append(q)
+                holds.append(bool(miss <= tolerance * scale))
+            goal = metric_display(sc.goal.metric, sim.metric(sc.goal.metric))[0]
+            out.append((goal, all(holds), quantities, holds))
+        except (SimulationFailed, ArithmeticError):
+            n = len(study.goal.limits)
+            out.append((float("nan"), False, [float("nan")] * n, [False] * n))
+    return out
+
+
+def points_in_scenarios(study: Study, points: list[dict], scenario_values: list[dict], pool,
+                        tolerance: float = 1e-9) -> list[list]:
+    """Every point in every scenario (in_scenarios), spread over a process pool (or here when `pool` is None) in
+    chunks; one list per point, in the scenarios' order."""
+    n_workers = pool._max_workers if pool is not None else 1
+    chunks = max(1, min(n_workers * 2, len(scenario_values) // 20 or 1))
+    parts = [scenario_values[i::chunks] for i in range(chunks)]
+    order = [list(range(len(scenario_values)))[i::chunks] for i in range(chunks)]
+    jobs = [(study, p, part, tolerance) for p in points for part in parts]
+    if pool is not None and len(jobs) > 1:
+        results = list(pool.map(in_scenarios, jobs))
+    else:
+        results = [in_scenarios(j) for j in jobs]
+    out = []
+    for k in range(len(points)):
+        merged = [None] * len(scenario_values)
+        for c in range(chunks):
+            for idx, res in zip(order[c], results[k * chunks + c]):
+                merged[idx] = res
+        out.append(merged)
+    return out

@@ -21,8 +21,8 @@ from pathlib import PurePath
 
 import numpy as np
 
-from tubeyield.errors import SimulationFailed, StudyError
-from tubeyield.study.variation import apply_values
+from tubeyield.errors import StudyError
+from tubeyield.jobs.evaluate import points_in_scenarios
 from tubeyield.jobs.store import open_existing
 from tubeyield.study.schema import Study
 from tubeyield.study.units import decision_to_user
@@ -59,47 +59,6 @@ def _user(study: Study, name: str, v):
     return decision_to_user(v, d)
 
 
-def _evaluate_candidate(args):
-    """Simulate one point in each of the given scenarios: [(goal, every limit holds, [limit quantities, SI])]."""
-    from tubeyield.reactor.metrics import metric_display
-    from tubeyield.reactor.simulate import simulate
-    from tubeyield.solve.multistart import violation
-    study, point, scenario_values = args
-    out = []
-    for values in scenario_values:
-        try:
-            sc = apply_values(study, values)
-            sim = simulate(sc, point, rtol=1e-8)
-            limits = [(sim.max_temperature() if lim.sense == "<=" else sim.min_temperature()) if lim.metric is None
-                      else sim.metric(lim.metric) for lim in sc.goal.limits]
-            goal = metric_display(sc.goal.metric, sim.metric(sc.goal.metric))[0]
-            out.append((goal, violation(sc, sim) <= 1e-9, limits))
-        except (SimulationFailed, ArithmeticError):  # a point that cannot be simulated misses the limits
-            out.append((float("nan"), False, [float("nan")] * len(study.goal.limits)))
-    return out
-
-
-def _evaluate_points(study: Study, points: list[dict], scenario_values: list[dict], pool) -> list[list]:
-    """Every point in every scenario, spread over the process pool (or here when `pool` is None) in chunks."""
-    n_workers = pool._max_workers if pool is not None else 1
-    chunks = max(1, min(n_workers * 2, len(scenario_values) // 20 or 1))
-    parts = [scenario_values[i::chunks] for i in range(chunks)]
-    order = [list(range(len(scenario_values)))[i::chunks] for i in range(chunks)]
-    jobs = [(study, p, part) for p in points for part in parts]
-    if pool is not None and len(jobs) > 1:
-        results = list(pool.map(_evaluate_candidate, jobs))
-    else:
-        results = [_evaluate_candidate(j) for j in jobs]
-    out = []
-    for k in range(len(points)):
-        merged = [None] * len(scenario_values)
-        for c in range(chunks):
-            for idx, res in zip(order[c], results[k * chunks + c]):
-                merged[idx] = res
-        out.append(merged)
-    return out
-
-
 def _tightened(study: Study, b: float, spread: list[float]) -> Study:
     import dataclasses
     limits = []
@@ -111,14 +70,14 @@ def _tightened(study: Study, b: float, spread: list[float]) -> Study:
 
 def _back_off(study: Study, nominal_results, scenario_values, pool, target: float):
     """The smallest back-off b (bisection) whose re-optimized point meets every limit in `target` of the
-    scenarios. Returns (label, point, results) or None."""
+    scenarios. Returns (label, point, results), or the reason there is none (a string)."""
     from tubeyield.jobs.optimize import optimize
     spread = []
     for k in range(len(study.goal.limits)):
         v = np.array([r[2][k] for r in nominal_results], dtype=float)
         spread.append(float(np.nanstd(v)) if np.isfinite(v).any() else 0.0)
     if not any(s > 0 for s in spread):
-        return None
+        return "the limit quantities do not vary over the scenarios at the nominal optimum (nothing to back off from)"
     cache = {}
 
     def trial(b):
@@ -127,15 +86,21 @@ def _back_off(study: Study, nominal_results, scenario_values, pool, target: floa
             if r.status != "optimal":
                 cache[b] = (None, None, 0.0)
             else:
-                res = _evaluate_points(study, [r.point()], scenario_values, pool)[0]
+                res = points_in_scenarios(study, [r.point()], scenario_values, pool)[0]
                 cache[b] = (dict(r.decisions_si), res, float(np.mean([x[1] for x in res])))
         return cache[b]
 
     lo, hi = 0.0, 1.0
     while trial(hi)[2] < target and hi < 8.0 and trial(hi)[0] is not None:
         lo, hi = hi, hi * 2
-    if trial(hi)[0] is None or trial(hi)[2] < target:
-        return None
+    if trial(hi)[0] is None:
+        best = max((v[2] for v in cache.values() if v[0] is not None), default=None)
+        return (f"with the limits tightened by {hi:g} standard deviations of their spread no operating point meets "
+                "them (the tightened study is infeasible)"
+                + (f"; the best share reached on the way was {100 * best:.1f} %" if best is not None else ""))
+    if trial(hi)[2] < target:
+        return (f"even with the limits tightened by {hi:g} standard deviations the re-optimized point meets every "
+                f"limit in only {100 * trial(hi)[2]:.1f} % of the scenarios (target {100 * target:.0f} %)")
     for _ in range(7):
         mid = 0.5 * (lo + hi)
         if trial(mid)[0] is not None and trial(mid)[2] >= target:
@@ -198,6 +163,9 @@ def summarize(store_path, study: Study | None = None, *, workers: int | None = N
 
 def _robustness(study: Study, rows, good, workers) -> dict:
     scenario_values = [r["inputs"] for r in rows if r["status"] != "failed" or "invalid scenario" not in (r["error"] or "")]
+    invalid = len(rows) - len(scenario_values)
+    left_out = (f"{invalid} scenario(s) were left out of the shares: their sampled inputs are outside the physical "
+                "range (e.g. a negative activation energy from a normal tail)." if invalid else "")
     pool: list[tuple[str, dict]] = []
     from tubeyield.jobs.optimize import optimize
     nominal = optimize(study)
@@ -220,12 +188,18 @@ def _robustness(study: Study, rows, good, workers) -> dict:
         executor = LocalExecutor(workers)
     try:
         procs = executor.pool if executor else None
-        results = _evaluate_points(study, [p for _, p in pool], scenario_values, procs)
+        results = points_in_scenarios(study, [p for _, p in pool], scenario_values, procs)
+        why_not = ""
         if pool and pool[0][0] == "nominal optimum":
             backed = _back_off(study, results[0], scenario_values, procs, target)
-            if backed is not None:
+            if isinstance(backed, str):
+                why_not = f"No backed-off optimum: {backed}."
+            else:
                 pool.append(backed[:2])
                 results.append(backed[2])
+        else:
+            why_not = (f"No backed-off optimum: the nominal optimization ended {nominal.status}"
+                       + (f" ({nominal.message})" if nominal.message else "") + ".")
     finally:
         if executor:
             executor.shutdown()
@@ -248,7 +222,10 @@ def _robustness(study: Study, rows, good, workers) -> dict:
     else:
         best = max(table, key=lambda t: t["share"]) if table else None
         text = (f"No candidate meets every limit in {100 * target:.0f} % of the scenarios; the most reliable is "
-                f"{best['label']} at {100 * best['share']:.1f} %." if best else "No candidates.")
+                f"{best['label']} at {100 * best['share']:.1f} %." if best else
+                "No candidate points: the nominal optimization did not give one, the study names no candidates, and "
+                "no scenario was solved to an optimum.")
+    text = " ".join(t for t in (text, why_not, left_out) if t)
     table.sort(key=lambda t: (-t["share"], -sense * (t["mean"] or 0.0)))
     return {"text": text, "decisions": names, "rows": table, "best": best["label"] if best else None,
-            "target": target, "scenarios": len(scenario_values)}
+            "target": target, "scenarios": len(scenario_values), "left_out": len(rows) - len(scenario_values)}

@@ -57,6 +57,7 @@ SAVED = {
     "fit": "fit.json",
     "fit-network": "fitted-network.toml",
     "fit-covariance": "fit-covariance.csv",
+    "robust": "robust.json",
 }
 
 

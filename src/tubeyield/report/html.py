@@ -71,6 +71,7 @@ def build_report(result_dir, out_dir=None) -> Path:
     window_d = _load_json(saved(result_dir, "window"))
     sweep = _load_json(saved(result_dir, "sweep-report"))
     fit = _fit_context(_load_json(saved(result_dir, "fit")))
+    robust = _load_json(saved(result_dir, "robust"))
     figs: dict = dict.fromkeys(("fit", "profiles", "front", "window", "sweep"))
     tables: dict = {}
     if fit and fit.get("curves"):
@@ -133,8 +134,11 @@ def build_report(result_dir, out_dir=None) -> Path:
                                for k, v in (window.fixed.items() if window else [])) or "none",
         window_share=float(window.window.mean()) if window else 0.0, sweep=sweep,
         points=study.reactor.points, inputs=inputs, provenance=_provenance(),
-        assumptions=_assumptions(study), summary=summary(optimum, window, sweep, report.errors(), fit),
-        fit=fit, num=_numbers(fit, sweep),
+        assumptions=_assumptions(study), summary=summary(optimum, window, sweep, report.errors(), fit, robust),
+        fit=fit, num=_numbers(fit, sweep, robust), robust=robust,
+        robust_decision_names=[n for n, d in ((robust or {}).get("decisions") or {}).items() if not d.get("fixed")],
+        robust_limit_names=[lim.text for lim in study.goal.limits],
+        robust_decision_value=lambda p, name: _robust_value(study, p, name),
         kinetics_applied=Path(study.kinetics.source).name if study.kinetics is not None else "")
     index = out / "index.html"
     write_atomic(index, html)
@@ -195,10 +199,24 @@ def _window_csv(w, path: Path) -> None:
     write_atomic(path, w.to_frame().to_csv(index=False))
 
 
-def _numbers(fit, sweep) -> dict:
+def _robust_value(study, p: dict, name: str) -> str:
+    """A validated point's decision in the study's units (the points carry SI values; profiles are summarized)."""
+    from tubeyield.study.units import decision_to_user
+    d = (p.get("decisions") or {}).get(name)
+    if d is not None:
+        return "profile" if isinstance(d["value"], list) else f"{fmt(d['value'], 4)} {d['unit']}".rstrip()
+    v = (p.get("point") or {}).get(name)
+    if v is None:
+        return "profile"
+    dec = study.decision(name)
+    return f"{fmt(decision_to_user(v, dec), 4)} {dec.unit}".rstrip()
+
+
+def _numbers(fit, sweep, robust=None) -> dict:
     """Section numbers for the sections this report holds."""
     names = ["network"] + (["kinetics"] if fit else []) + ["optimum", "profiles", "front", "window"] + \
-        (["sweep"] if sweep else []) + ["verification", "inputs", "provenance", "cautions"]
+        (["sweep"] if sweep else []) + (["robust"] if robust else []) + ["verification", "inputs", "provenance",
+                                                                           "cautions"]
     return {name: i + 1 for i, name in enumerate(names)}
 
 
@@ -239,7 +257,8 @@ def _fit_context(fit: dict | None) -> dict | None:
     sv = fit.get("singular_values") or []
     fit["singular_line"] = ", ".join(f"{v / sv[0]:.2g}" for v in sv) + " (relative to the largest)" if sv else "none"
     scale = 1.0 if known else (fit.get("sigma") or 1.0)
-    fit["residual_rows"] = [{**r, "rms": r["rms"] / scale, "mean": r["mean"] / scale} for r in fit["residual_summary"]]
+    fit["residual_rows"] = [{"species": r["species"], "samples": r.get("samples", r.get("values")),
+                             "rms": r["rms"] / scale, "mean": r["mean"] / scale} for r in fit["residual_summary"]]
     for r in fit["rivals"]:
         test = r.get("test") or {}
         r["test_line"] = (nested_verdict(test) if test.get("test") else

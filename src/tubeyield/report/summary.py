@@ -19,7 +19,7 @@ def _quantity(value, unit: str, digits: int = 4) -> str:
 
 
 def summary(optimum: dict | None, window=None, sweep: dict | None = None, network_errors=(),
-            fit: dict | None = None) -> dict:
+            fit: dict | None = None, robust: dict | None = None) -> dict:
     """{"headline", "point": [(decision, value)], "limits": [{text, value, margin, binding, marginal, holds}],
     "verification", "robustness", "stops": [reasons a reviewer should not accept the point as it stands]}.
     `network_errors` are the network check's errors (a network that cannot conserve mass is a stop)."""
@@ -32,8 +32,12 @@ def summary(optimum: dict | None, window=None, sweep: dict | None = None, networ
             stops.append(f"FIT {str(fit.get('status')).upper()}: {fit.get('message') or 'see the kinetics section'}")
         stops += [f"FIT: {p['path']} ended at its bound" for p in fit.get("parameters", []) if p.get("at_bound")]
     out = {"headline": "", "point": [], "limits": [], "verification": "", "robustness": "", "window_note": "",
-           "stops": stops}
+           "stops": stops, "robust": None, "limits_at": "the recommended point"}
     if not optimum:
+        if robust is not None:
+            _recommend_robust(out, robust, {"metric": robust["goal"]["metric"]})
+            if out["robust"] is not None:
+                return out
         out["headline"] = "No optimization result was saved: run `tubeyield optimize STUDY --save DIR`."
         stops.append("there is no verified operating point in this report")
         return out
@@ -106,13 +110,15 @@ def summary(optimum: dict | None, window=None, sweep: dict | None = None, networ
         if nominal is not None:
             parts.append(f"the optimum meets every limit in {100 * nominal['share']:.0f} % of "
                          f"{rb['scenarios']} scenarios")
-            if nominal["share"] < FEW_SCENARIOS:
+            if nominal["share"] < FEW_SCENARIOS and not (robust and robust.get("status") == st.OPTIMAL):
                 stops.append(f"under the sweep's uncertainty the optimum meets every limit in only "
                              f"{100 * nominal['share']:.0f} % of the scenarios (target {100 * target:.0f} %)")
         if best is not None and best is not nominal:
             parts.append(f"{best['label']} meets them in {100 * best['share']:.0f} % "
                          f"(mean {g['metric']} {fmt(best['mean'], 4)})")
         out["robustness"] = "Sweep: " + "; ".join(parts) + "." if parts else ""
+    if robust is not None:
+        _recommend_robust(out, robust, g)
     if window is not None:
         share = float(window.window.mean())
         point_holds = status == st.OPTIMAL and all(lim.get("holds", True) for lim in out["limits"])
@@ -127,3 +133,40 @@ def summary(optimum: dict | None, window=None, sweep: dict | None = None, networ
         elif share == 0.0:
             stops.append("the window map has no cell where every limit holds")
     return out
+
+
+def _recommend_robust(out: dict, robust: dict, g: dict) -> None:
+    """A robust point that passed its checks is the recommendation: its decisions, its validated share and what it
+    costs against the nominal optimum; the nominal optimum's limit table stays, labelled as such. A robust run that
+    failed, or whose point meets the limits in few fresh scenarios, is a stop."""
+    points = {p["name"]: p for p in robust.get("points", [])}
+    mine, nominal = points.get("robust point"), points.get("nominal optimum")
+    if robust.get("status") != st.OPTIMAL or mine is None:
+        out["stops"].append(f"ROBUST {str(robust.get('status')).upper()}: {robust.get('message') or 'no robust point'}")
+        return
+    n = mine["n"]
+    out["headline"] = (f"Recommended operating point (robust): expected {g['metric']} {fmt(mine['expected_goal'], 5)}; "
+                       f"meets every limit in {100 * mine['share']:.1f} % of {n} fresh scenarios "
+                       f"(95 % {100 * mine['share_low']:.1f}-{100 * mine['share_high']:.1f} %).")
+    out["point"] = [(name, f"{fmt(d['value'], 4)} {d['unit']}".rstrip() if not isinstance(d["value"], list)
+                     else "profile") for name, d in robust.get("decisions", {}).items()]
+    out["limits_at"] = "the nominal optimum (for comparison; the robust point's violation rates are below)"
+    if out["verification"]:
+        out["verification"] = "Nominal optimum: " + out["verification"]
+    tr = robust.get("training") or {}
+    if tr.get("kept"):
+        out["verification"] += (f" Robust point: simulated in its {tr['kept']} training scenarios, "
+                                f"{tr['meet_every_limit']} meet every limit.")
+    rows = [p for p in (nominal, points.get(next((k for k in points if k.startswith("backed-off")), "")), mine) if p]
+    out["robust"] = {
+        "rows": [{"name": p["name"], "expected": fmt(p["expected_goal"], 5),
+                  "share": f"{100 * p['share']:.1f} % ({100 * p['share_low']:.1f}-{100 * p['share_high']:.1f} %)",
+                  "violations": ", ".join(f"{k} {100 * v:.1f} %" for k, v in p["violations"].items() if v > 0)
+                  or "none"} for p in rows],
+        "price": (f"Robustness costs {fmt(nominal['expected_goal'] - mine['expected_goal'], 3)} in expected "
+                  f"{g['metric']} against the nominal optimum, which meets every limit in only "
+                  f"{100 * nominal['share']:.1f} % of the same scenarios." if nominal else ""),
+        "bound": (robust.get("guarantee") or {}).get("statement", "")}
+    if mine["share"] < FEW_SCENARIOS:
+        out["stops"].append(f"the robust point meets every limit in only {100 * mine['share']:.1f} % of the fresh "
+                            "scenarios")

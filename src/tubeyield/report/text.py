@@ -292,3 +292,38 @@ def _rival_line(r: dict) -> str:
         from tubeyield.report.html import nested_verdict
         text += f"; {nested_verdict(test)}"
     return text
+
+
+def robust_summary(result) -> str:
+    """The robust point for the terminal: the decisions, the goal over the scenarios, the guarantee, the front of
+    goal against share, and the validation of the nominal, backed-off and robust points side by side."""
+    out = [f"{result.study}: robust point {result.status}" + (f"  {result.message}" if result.message else "")]
+    if not result.decisions:
+        return "\n".join(out + [CAUTION])
+    g = result.goal
+    out.append(f"  {g['objective']} {g['metric']} over the {result.scenarios} training scenarios: {fmt(g['value'], 5)} "
+               f"(the nominal optimum: {fmt(g.get('nominal'), 5)} at the nominal parameters)")
+    out.append("  decisions: " + ", ".join(
+        f"{n} {fmt(d['value'], 5) if not isinstance(d['value'], list) else 'profile'} {d['unit']}".rstrip()
+        for n, d in result.decisions.items()))
+    out.append(f"  {result.decision_count} decision(s); {result.discarded} scenario(s) discarded (share required "
+               f"{100 * result.share_required:.0f} %)")
+    if result.guarantee.get("statement"):
+        out.append(f"  scenario bound: {result.guarantee['statement']}")
+    tr = result.training
+    out.append(f"  training scenarios simulated at the point: {tr['meet_every_limit']} of {tr['kept']} meet every "
+               f"limit (tolerance {tr['tolerance']:.0e})")
+    if len(result.front) > 1:
+        out.append("  front (share of training scenarios whose limits hold -> goal): " + ", ".join(
+            f"{100 * f['share']:.0f} % -> {fmt(f['goal'], 5)}" for f in result.front))
+    out.append(f"  validation on {result.validation} fresh scenarios:")
+    width = max(len(p["name"]) for p in result.points)
+    for p in result.points:
+        worst = ", ".join(f"{k} {100 * v:.1f} %" for k, v in p["violations"].items() if v > 0) or "none"
+        out.append(f"    {p['name']:<{width}}  expected {fmt(p['expected_goal'], 5)}  meets every limit in "
+                   f"{100 * p['share']:.1f} % (95 % {100 * p['share_low']:.1f}-{100 * p['share_high']:.1f} %); "
+                   f"violations: {worst}")
+    for w in result.warnings:
+        out.append(f"  warning: {w}")
+    out.append(CAUTION)
+    return "\n".join(out)

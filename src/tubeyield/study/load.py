@@ -16,6 +16,7 @@ from tubeyield.study.read_goal import read_front, read_goal, read_numerics, read
 from tubeyield.study.read_network import merge_unique, read_reactions, read_species, resolve_reaction
 from tubeyield.study.read_operation import read_feed, read_operate, read_reactor
 from tubeyield.study.read_fit import read_experiments, read_fit
+from tubeyield.study.read_robust import read_robust
 from tubeyield.study.read_sweep import read_sweep
 from tubeyield.study import caps
 from tubeyield.study.kinetics import GAS_CONSTANT
@@ -23,7 +24,7 @@ from tubeyield.study.schema import Feed, Reactor, Rival, SourceFile, Species, St
 from tubeyield.study.toml import Table, parse_toml, read_text
 
 NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9 _.+()-]{0,99}$")
-OPTIONAL_SECTIONS = ("front", "window", "sweep", "fit")
+OPTIONAL_SECTIONS = ("front", "window", "sweep", "fit", "robust")
 
 
 def load_study(path, *, need=OPTIONAL_SECTIONS) -> Study:
@@ -67,7 +68,7 @@ def study_from_sources(document: str, *, need=OPTIONAL_SECTIONS) -> Study:
 
 
 TOP_KEYS = ("study", "species", "reaction", "feed", "reactor", "operate", "goal", "front", "window", "sweep", "numerics",
-            "experiment", "fit")
+            "experiment", "fit", "robust")
 
 
 class _IncludesOnDisk:
@@ -223,6 +224,7 @@ def study_from_dict(doc: dict, *, path: str = "", source: str = "", includes=Non
     experiments, fit = optional("fit", read_lab) or ((), None)
     front = optional("front", lambda: read_front(top.table("front", None), symbols))
     window = optional("window", lambda: read_window(top.table("window", None), decisions))
+    robust = optional("robust", lambda: read_robust(top.table("robust", None)))
     top.close(TOP_KEYS)
 
     _check_heat_needs(reactor, reactions, by_symbol, feed, decisions)
@@ -232,7 +234,7 @@ def study_from_dict(doc: dict, *, path: str = "", source: str = "", includes=Non
         raise exc.in_file(files.get(exc.key.split(".")[1]) or path) from None
     study = Study(name=name, species=tuple(species), reactions=tuple(reactions), feed=feed, reactor=reactor,
                   decisions=tuple(decisions), goal=goal, front=front, window=window, numerics=numerics,
-                  experiments=experiments, fit=fit,
+                  experiments=experiments, fit=fit, robust=robust,
                   description=description, path=path, source=source, includes=tuple(sources + data_files))
     sweep = optional("sweep", lambda: read_sweep(top.table("sweep", None), study))
     return replace(study, sweep=sweep, section_errors=tuple(deferred))

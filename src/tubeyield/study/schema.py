@@ -175,6 +175,21 @@ class SweepSpec:
 
 
 @dataclass(frozen=True)
+class RobustSpec:
+    """[robust]: one operating point for many scenarios of the uncertain parameters ([sweep]'s distributions and
+    the fit's uncertainty): N training scenarios in one NLP, the share of them whose limits must hold (the rest
+    discarded greedily), the goal over them (mean or worst), M fresh scenarios for validation, the confidence of
+    the stated violation bound, and the seed of the draws."""
+    scenarios: int = 50
+    share: float = 1.0
+    objective: str = "mean"       # mean | worst
+    validation: int = 400
+    confidence: float = 0.99
+    seed: int = 11
+    elements: int = 20            # collocation elements of each scenario's copy (at most the study's)
+
+
+@dataclass(frozen=True)
 class Numerics:
     starts: int = 4
     check_tolerance: float = 1e-6
@@ -290,6 +305,7 @@ class Study:
     front: FrontSpec | None = None
     window: WindowSpec | None = None
     sweep: SweepSpec | None = None
+    robust: RobustSpec | None = None
     numerics: Numerics = field(default_factory=Numerics)
     experiments: tuple[Experiment, ...] = ()
     fit: FitSpec | None = None
