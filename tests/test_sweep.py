@@ -213,8 +213,12 @@ def test_ctrl_c_keeps_finished_scenarios_and_resume_completes(tmp_path, referenc
     store = tmp_path / "s.sqlite"
     # one worker, so that a core stays free for this test to see the fifth row and interrupt: with two workers on
     # two cores the 40 scenarios once finished between two looks at the store
+    # Ctrl-C as a terminal delivers it to a foreground process: SIGINT at its default disposition. The test
+    # process can hold it ignored or blocked at the C level after earlier tests (seen: in the full suite the sweep
+    # inherited an ignored SIGINT, ran all 40 scenarios and exited 0), and a child inherits both: reset them.
     proc = subprocess.Popen(_sweep_cmd(study, store, "--workers", "1"), stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True, start_new_session=True, env=_env())
+                            stderr=subprocess.PIPE, text=True, start_new_session=True, env=_env(),
+                            preexec_fn=_default_sigint)
     try:
         _wait_for_rows(store, 5, proc)
         running = proc.poll() is None
@@ -226,10 +230,24 @@ def test_ctrl_c_keeps_finished_scenarios_and_resume_completes(tmp_path, referenc
             os.killpg(proc.pid, signal.SIGKILL)
     assert proc.returncode == 130 and "--resume" in err, (
         f"exit {proc.returncode}; running when interrupted: {running}; rows then {at_interrupt}, now "
-        f"{_count(store)}; stdout {out[-500:]!r}; stderr {err[-1500:]!r}")
+        f"{_count(store)}; stdout {out[-500:]!r}; stderr {err[-1500:]!r}; this process: {_signal_masks()}")
     r = subprocess.run(_sweep_cmd(study, store, "--resume"), capture_output=True, text=True, timeout=600)
     assert r.returncode == 0, r.stderr
     _same(_rows(store), reference_run)
+
+
+def _default_sigint() -> None:
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+    signal.pthread_sigmask(signal.SIG_UNBLOCK, [signal.SIGINT])
+
+
+def _signal_masks() -> str:
+    """This process's ignored and blocked signal masks (Linux), for a failure message."""
+    try:
+        lines = Path("/proc/self/status").read_text().splitlines()
+    except OSError:
+        return "unknown"
+    return ", ".join(line for line in lines if line.startswith(("SigIgn", "SigBlk")))
 
 
 def _free_port() -> int:
