@@ -218,3 +218,12 @@ def test_limits_that_no_point_holds_in_every_scenario_are_named(tmp_path):
     r = _cli("robust", str(path))
     assert r.returncode == 3, (r.returncode, r.stdout, r.stderr)
     assert "conversion:A >= 0.999 missed in" in r.stdout
+
+
+def test_the_python_api_gives_the_validated_points_as_a_table():
+    import tubeyield as ty
+    result = ty.robust(study_from_toml(SERIES), scenarios=4, validation=20, workers=1)
+    table = result.to_frame()
+    assert list(table["point"]) == ["nominal optimum", "robust point"]
+    assert table["share"].tolist() == [p["share"] for p in result.points]
+    assert "violates:conversion:A >= 0.9" in table.columns

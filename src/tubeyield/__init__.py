@@ -5,9 +5,9 @@ The Python API (tubeyield.api) is re-exported here: `import tubeyield as ty; ty.
 
 __version__ = "0.1.0"
 
-_API = ("CheckReport", "FitResult", "FrontResult", "Result", "Study", "StudyError", "SweepOutcome", "WindowResult",
-        "check", "fit", "front", "load", "load_study", "optimize", "report", "simulate", "sweep", "sweep_summary",
-        "window")
+_API = ("CheckReport", "FitResult", "FrontResult", "Result", "RobustResult", "Study", "StudyError", "SweepOutcome",
+        "WindowResult", "check", "fit", "front", "load", "load_study", "optimize", "report", "robust", "simulate",
+        "sweep", "sweep_summary", "window", "with_kinetics")
 __all__ = list(_API)
 
 

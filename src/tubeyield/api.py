@@ -21,13 +21,14 @@ from tubeyield.errors import StudyError
 from tubeyield.jobs.fit import FitResult
 from tubeyield.jobs.front import FrontResult
 from tubeyield.jobs.result import Result
+from tubeyield.jobs.robust import RobustResult
 from tubeyield.jobs.sweep import SweepOutcome
 from tubeyield.jobs.window import WindowResult
 from tubeyield.study import Study, load_study
 
-__all__ = ["CheckReport", "FitResult", "FrontResult", "Result", "Study", "StudyError", "SweepOutcome", "WindowResult",
-           "check", "fit", "front", "load", "load_study", "optimize", "report", "simulate", "sweep", "sweep_summary",
-           "window"]
+__all__ = ["CheckReport", "FitResult", "FrontResult", "Result", "RobustResult", "Study", "StudyError", "SweepOutcome",
+           "WindowResult", "check", "fit", "front", "load", "load_study", "optimize", "report", "robust", "simulate",
+           "sweep", "sweep_summary", "window", "with_kinetics"]
 
 
 def load(path) -> Study:
@@ -60,6 +61,22 @@ def fit(study) -> FitResult:
     (jobs/fit.py); `to_frame()` gives the parameter table."""
     from tubeyield.jobs.fit import fit as _fit
     return _fit(_study(study, "fit"))
+
+
+def with_kinetics(study, fit_file) -> Study:
+    """The study with the kinetics of a saved fit (`tubeyield fit --save DIR` writes DIR/fit.json) in place of its
+    own, as `--kinetics` does; refused for a study whose network differs from the fitted one."""
+    from tubeyield.study.read_kinetics import load_kinetics
+    return load_kinetics(_study(study), fit_file)
+
+
+def robust(study, *, scenarios: int | None = None, share: float | None = None, validation: int | None = None,
+           workers: int | None = None) -> RobustResult:
+    """One operating point that keeps the limits in many scenarios of the uncertain parameters ([sweep]
+    distributions, the fit's uncertainty), validated on fresh scenarios beside the nominal optimum (jobs/robust.py);
+    `to_frame()` gives the validated points."""
+    from tubeyield.jobs.robust import robust as _robust
+    return _robust(_study(study, "sweep"), scenarios=scenarios, share=share, validation=validation, workers=workers)
 
 
 def optimize(study, *, starts: int | None = None, seed: int = 0, relax: bool = True) -> Result:
