@@ -141,11 +141,15 @@ def summarize(store_path, study: Study | None = None, *, workers: int | None = N
     summary["distributions"] = dist
 
     from scipy.stats import spearmanr
-    for v in study.sweep.vary:
-        x = np.array([r["inputs"][v.path] for r in good], dtype=float)
+    # every varied input: the vary paths and, with fit_uncertainty, the fitted parameters drawn from the fit
+    paths = list(dict.fromkeys([v.path for v in study.sweep.vary] + [p for r in good for p in r["inputs"]]))
+    for path in paths:
+        if any(path not in r["inputs"] for r in good):
+            continue
+        x = np.array([r["inputs"][path] for r in good], dtype=float)
         if np.ptp(x) == 0:
             continue
-        row = {"path": v.path}
+        row = {"path": path}
         y = np.array([r["goal"] for r in good], dtype=float)
         row["rho"] = float(spearmanr(x, y).statistic) if np.ptp(y) > 0 else 0.0
         for name in dist:
