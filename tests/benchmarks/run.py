@@ -7,6 +7,9 @@ Writes <out>/index.md and <out>/results.csv. Cases:
   d  a 21-point front
   e  a 500-scenario sampled sweep on all cores
   f  scaling: time and memory against elements and against network size
+  w  the whole process of one optimization (command against command)
+  g, h  kinetic fitting: the gas-oil benchmark against scipy, the demo's fit
+  i  the robust point of the demo
 A time ratio is quoted only when the optimum values agree to 1e-7 (relative).
 """
 
@@ -420,8 +423,9 @@ def write_report(rows, notes, out: Path, started: float, quick: bool):
             lines.append(f"| {e['species']} | {e['reactions']} | {fmt(e['seconds'])} | {e['status']} | "
                          f"{e['elements']} | {fmt(e['check'])} | {fmt(e['peak_rss_mb'])} |")
     from fit_cases import report_lines
+    from process_cases import report_lines as process_lines
     from robust_cases import report_lines as robust_lines
-    lines += report_lines(by) + robust_lines(by)
+    lines += process_lines(by) + report_lines(by) + robust_lines(by)
     lines += ["", "## Targets", ""] + _targets(by) + ["", "## Where targets are missed, and why", ""] + \
         _explain(by) + ["", "## Notes", ""] + [f"- {n}" for n in notes]
     (out / "index.md").write_text("\n".join(lines) + "\n")
@@ -468,7 +472,9 @@ def _targets(by) -> list:
         line("at least 5 scenario optimizations per second on 2 cores", f"{r['scenarios_per_s']:.1f}/s on "
              f"{os.cpu_count()} cores", r["scenarios_per_s"] >= 5)
     from fit_cases import targets
+    from process_cases import targets as process_targets
     from robust_cases import targets as robust_targets
+    process_targets(by, line)
     targets(by, line)
     robust_targets(by, line)
     if "f" in by:
@@ -543,6 +549,9 @@ def main():
         tmp = Path(tmp)
         a = case_single("a", "isothermal", repeats, 120 if args.quick else 600, rows, notes)
         print("a done", flush=True)
+        from process_cases import case_process
+        case_process(rows, notes, tmp, 3 if args.quick else 5, demo_text("isothermal"))
+        print("w done", flush=True)
         case_single("b", "zones", repeats, 120 if args.quick else 600, rows, notes)
         print("b done", flush=True)
         case_single("c", "free", max(1, repeats // 2), 60 if args.quick else 300, rows, notes)
