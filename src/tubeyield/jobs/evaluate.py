@@ -89,7 +89,7 @@ def evaluate(study: Study, values: dict) -> Result:
                                        "unit": gunit},
                   decisions, metrics, outlet, limits, [], None, {}, {"simulate": time.perf_counter() - t0},
                   message=sim.integrator, volume_m3=values["tau"] * study.feed.flow, decisions_si=dict(values),
-                  profile=sim.profile())
+                  profile_data=sim.profile())
 
 
 # ------------------------------------------------------------------------------------ a point in many scenarios

@@ -241,7 +241,7 @@ def _result(study: Study, model: ReactorModel, status: str, check, starts_info: 
                   limits=limits, bounds=[b.to_dict() for b in bound_reports(model)],
                   check=check, starts=starts_info, timing=timing,
                   volume_m3=float(pyo.value(model.tau_expr())) * study.feed.flow,
-                  decisions_si=values, profile=model.profile())
+                  decisions_si=values, profile_data=model.profile_rows())
 
 
 def _with_hot_spots(study: Study, limits: list, verified, tau: float) -> None:

@@ -27,7 +27,16 @@ class Result:
     conflicts: list = field(default_factory=list) # infeasible: the limits that cannot hold together
     volume_m3: float | None = None
     decisions_si: dict = field(default_factory=dict, repr=False)
-    profile: object = field(default=None, repr=False)     # pandas DataFrame (CSV on disk)
+    profile_data: object = field(default=None, repr=False)  # the axial profile: row dicts, or a pandas DataFrame
+
+    @property
+    def profile(self):
+        """The axial profile (pandas DataFrame, one row per collocation point; CSV on disk). Kept as plain rows until
+        asked for: pandas costs 0.2 s to import, and a command that prints the result does not need it."""
+        if isinstance(self.profile_data, list):
+            import pandas as pd
+            self.profile_data = pd.DataFrame(self.profile_data)
+        return self.profile_data
 
     def to_dict(self) -> dict:
         return finite_json({

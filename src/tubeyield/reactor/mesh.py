@@ -22,7 +22,6 @@ region where the estimate happens to vanish still keeps elements.
 from __future__ import annotations
 
 import numpy as np
-from scipy.interpolate import BarycentricInterpolator
 
 DENSITY_FLOOR = 0.05        # share of the mean density below which no element's density falls
 POINT_SPACING = 5e-6        # pyomo.dae rounds collocation points to 6 decimals: keep them at least this far apart
@@ -100,6 +99,7 @@ def element_errors(edges, nodes_values: np.ndarray, rhs, scales: np.ndarray, poi
     tau = np.concatenate([[0.0], radau_roots(points)])
     test = 0.5 * (tau[:-1] + tau[1:])
     edges = np.asarray(edges, dtype=float)
+    from scipy.interpolate import BarycentricInterpolator   # here, not at the top: only refinement needs it
     errors = np.zeros(len(edges) - 1)
     for k in range(len(edges) - 1):
         a, h = edges[k], edges[k + 1] - edges[k]

@@ -338,8 +338,13 @@ class ReactorModel:
         """What the reference simulation starts from (None: the inlet; tank models give their solution)."""
         return None
 
-    def profile(self):
+    def profile_rows(self) -> list[dict]:
         raise NotImplementedError
+
+    def profile(self):
+        """The profile at the current values (pandas DataFrame)."""
+        import pandas as pd
+        return pd.DataFrame(self.profile_rows())
 
 
 def _metric_scale(metric: Metric, bound: float, model: ReactorModel) -> float:

@@ -216,9 +216,8 @@ class PlugModel(ReactorModel):
 
     # --------------------------------------------------------------------------------------------------- profiles
 
-    def profile(self):
-        """Axial profile at the current values: one row per collocation point."""
-        import pandas as pd
+    def profile_rows(self) -> list[dict]:
+        """Axial profile at the current values: one dict per collocation point."""
         st = self.study
         tau = float(pyo.value(self.tau_expr()))
         rows = []
@@ -229,4 +228,4 @@ class PlugModel(ReactorModel):
             row = {"z": z, "residence_time_s": z * tau, "volume_m3": z * tau * st.feed.flow, "T_K": T}
             row.update({f"C_{s}_mol_per_m3": conc[s] for s in st.symbols})
             rows.append(row)
-        return pd.DataFrame(rows)
+        return rows

@@ -98,8 +98,8 @@ class StirredModel(ReactorModel):
             if self.study.reactor.mode.energy_balance:
                 m.theta[k].set_value(sim.tanks[k - 1].T / self.T_scale, skip_validation=True)
 
-    def profile(self):
-        import pandas as pd
+    def profile_rows(self) -> list[dict]:
+        """The tanks at the current values: one dict per tank."""
         st = self.study
         tau = float(pyo.value(self.tau_expr()))
         par = {k: pyo.value(v) for k, v in self.par.items()}
@@ -112,4 +112,4 @@ class StirredModel(ReactorModel):
                    "volume_m3": k * tau * st.feed.flow / self.n_tanks, "T_K": T}
             row.update({f"C_{s}_mol_per_m3": conc[s] for s in st.symbols})
             rows.append(row)
-        return pd.DataFrame(rows)
+        return rows

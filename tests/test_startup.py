@@ -1,0 +1,51 @@
+"""What every command pays before it starts: the start design and the imports.
+
+The design is checked against the definition of a Latin hypercube (McKay, Beckman and Conover, Technometrics 21
+(1979) 239-245): each axis cut into n equal slices holds exactly one of the n points in every slice. The import
+checks are structural, not timed (speed is measured by `make bench`): the optimize command must not load modules it
+does not use.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+import numpy as np
+
+from tubeyield.solve.multistart import latin_hypercube
+
+
+def test_latin_hypercube_one_point_per_slice():
+    for n, d, seed in ((16, 3, 0), (7, 5, 3), (1, 2, 0), (64, 1, 11)):
+        u = latin_hypercube(n, d, seed)
+        assert u.shape == (n, d)
+        assert np.all(u >= 0.0) and np.all(u < 1.0)
+        for axis in range(d):
+            slices = np.floor(u[:, axis] * n).astype(int)
+            assert sorted(slices.tolist()) == list(range(n)), (n, d, seed, axis)
+
+
+def test_latin_hypercube_seeded():
+    assert np.array_equal(latin_hypercube(12, 3, 4), latin_hypercube(12, 3, 4))
+    assert not np.array_equal(latin_hypercube(12, 3, 4), latin_hypercube(12, 3, 5))
+
+
+def test_latin_hypercube_uniform_marginals():
+    # each coordinate is uniform on [0, 1): over many points the mean is 1/2 and the variance 1/12
+    u = latin_hypercube(4000, 2, 1)
+    assert np.allclose(u.mean(axis=0), 0.5, atol=0.01)
+    assert np.allclose(u.var(axis=0), 1.0 / 12.0, rtol=0.02)
+
+
+def test_optimize_command_imports_only_what_it_uses():
+    code = ("import sys, json, tubeyield.cli, tubeyield.jobs.optimize, tubeyield.report.text; "
+            "print(json.dumps(sorted(m for m in sys.modules if m.split('.')[0] in ('scipy', 'pandas', 'matplotlib'))))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr
+    loaded = set(json.loads(out.stdout.strip().splitlines()[-1]))
+    # scipy.stats (about 0.3 s) was loaded by a hook of Pyomo's whenever scipy was imported; plotting and tables are
+    # for the report
+    for heavy in ("scipy.stats", "scipy.interpolate", "matplotlib", "pandas"):
+        assert heavy not in loaded, f"{heavy} is imported by the optimize command's modules"
