@@ -159,8 +159,10 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
     levels = np.linspace(x_start, x_end, n)
     levels[-1] = x_end - sign * END_INSET * max(abs(x_end - x_start), 1e-300)
     t = time.perf_counter()
-    previous = None
+    previous, earlier = None, None
     for i, level in enumerate(levels):
+        if previous is not None and earlier is not None:
+            _predict(previous, earlier)
         point = _level_point(model, study, spec, float(level), solver, options, previous)
         if point is not None and point["status"] == st.UNVERIFIED:
             # this level needs a finer mesh than the front model's: refine for it alone (the front goes on
@@ -178,9 +180,10 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
                 point = _point_from_result(x_opt, spec, x_opt.metrics[spec.x.text]["value"])
                 point["note"] = "the x-end's own optimum (the last level could not be solved on the front model)"
         if point is not None:
-            previous = model.snapshot()
+            earlier, previous = (previous if point["status"] == st.OPTIMAL else None), model.snapshot()
             result.points.append(point)
         else:
+            earlier = None
             result.points.append({"level": metric_display(spec.x, float(level))[0], "status": st.FAILED, "x": None,
                                   "y": None, "trade_off": None, "decisions": {}, "metrics": {}, "active": [],
                                   "check": None, "dominated": False,
@@ -244,6 +247,22 @@ def _level_point(model, study: Study, spec, level: float, solver, options, previ
             model.restore(previous)
         return None
     return _point(model, study, spec, level, solver)
+
+
+def _predict(previous: dict, earlier: dict) -> None:
+    """Start the next level from the secant through the last two points (the levels are evenly spaced): every free
+    variable at 2 x_previous - x_earlier, kept within its bounds. A first-order predictor for the continuation (E. L.
+    Allgower and K. Georg, Introduction to Numerical Continuation Methods, SIAM 2003, chapter 2): the warm start then
+    corrects a small error instead of the whole step."""
+    for (v, x1), (_, x0) in zip(previous["values"], earlier["values"]):
+        if x1 is None or x0 is None or (v.lb is not None and v.lb == v.ub):
+            continue
+        x = 2.0 * x1 - x0
+        if v.lb is not None:
+            x = max(x, v.lb)
+        if v.ub is not None:
+            x = min(x, v.ub)
+        v.set_value(x, skip_validation=True)
 
 
 def _refined_point(model, fstudy: Study, study: Study, spec, level: float, solver, options, timing) -> dict | None:
