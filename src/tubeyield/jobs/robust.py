@@ -196,8 +196,8 @@ def _held_everywhere(study: Study, scenario_studies: list, n: int):
     return best
 
 
-HOMOTOPY_STEPS = (0.25, 0.5, 0.75, 1.0)
-FIRST_TRY_ITERATIONS = 100   # shares of the way from a limit's value at the start to its bound
+HOMOTOPY_STEPS = (0.25, 0.5, 0.75, 1.0)   # shares of the way from a limit's value at the start to its bound
+FIRST_TRY_ITERATIONS = 100                # Ipopt iterations from the nominal optimum before the other starts
 
 
 def _start_levels(nlp: _Scenarios, model) -> list[tuple]:
@@ -350,7 +350,7 @@ def robust(study: Study, *, scenarios: int | None = None, share: float | None = 
     if edges is not None and meshed.reactor.form.axial:
         # the verified mesh resolves the nominal scenario only: a scenario that runs hotter or faster has its front
         # elsewhere (measured on an adiabatic study: collocation residuals of 104 at the start on the nominal's
-        # mesh, and Ipopt found the NLP infeasible or needed 300-430 iterations). Place the same number of elements
+        # mesh, and Ipopt found the NLP infeasible or needed 300-800 iterations). Place the same number of elements
         # for every training scenario's simulation at the start.
         from tubeyield.reactor.mesh import adapted_edges, breakpoints
         mesh = adapted_edges(sims, len(edges) - 1, meshed.reactor.points, fixed=breakpoints(meshed.reactor.zones),
@@ -371,6 +371,7 @@ def robust(study: Study, *, scenarios: int | None = None, share: float | None = 
     res = solver.solve(nlp.big, tee=tee, options={"max_iter": FIRST_TRY_ITERATIONS} if moves else None)
     iterations = [solver.last_stats.get("iterations")]
     condition = res.solver.termination_condition
+    started_from = "the nominal optimum"
     if condition not in OK_CONDITIONS and condition not in ACCEPTABLE_CONDITIONS and moves:
         # second try: start from a point of the screening design that already holds every limit in every training
         # scenario (simulated), so that Ipopt begins inside the limits. Measured on an invented adiabatic study
@@ -383,7 +384,7 @@ def robust(study: Study, *, scenarios: int | None = None, share: float | None = 
             iterations.append(solver.last_stats.get("iterations"))
             if res.solver.termination_condition in OK_CONDITIONS + ACCEPTABLE_CONDITIONS:
                 nlp, condition = nlp_held, res.solver.termination_condition
-                timing["start"] = "a screened point that holds every limit in every training scenario"
+                started_from = "a screened point that holds every limit in every training scenario"
     if condition not in OK_CONDITIONS and condition not in ACCEPTABLE_CONDITIONS and moves:
         # from the start the solver could not reach a point that holds every limit in every scenario: start again
         # from where the nominal decisions stand and move the limits they miss to their bounds in steps (a homotopy
@@ -394,6 +395,7 @@ def robust(study: Study, *, scenarios: int | None = None, share: float | None = 
                 v.set_value(value, skip_validation=True)
         condition, reached = _homotopy(nlp, moves, solver, tee, iterations)
         timing["homotopy_reached"] = reached
+        started_from = "the nominal optimum, the limits it misses moved to their bounds in steps"
     if condition not in OK_CONDITIONS and condition not in ACCEPTABLE_CONDITIONS:
         timing["solve"] = time.perf_counter() - t
         return _infeasible_or_failed(study, spec, d, nlp, model, condition, scenario_studies, timing)
@@ -472,7 +474,8 @@ def robust(study: Study, *, scenarios: int | None = None, share: float | None = 
                                  f"violates a limit at this point is at most {eps:.3g} ({note})") if eps is not None
                    else f"{N} scenarios are too few for a bound with {d} decisions and {k_total} discarded"},
         points=points, front=front,
-        training={"kept": len(kept), "meet_every_limit": training_ok, "tolerance": tolerance},
+        training={"kept": len(kept), "meet_every_limit": training_ok, "tolerance": tolerance,
+                  "start": started_from},
         validation=spec.validation, timing=timing, message=message, warnings=warnings, decisions_si=robust_si)
 
 

@@ -313,6 +313,9 @@ def robust_summary(result) -> str:
     tr = result.training
     out.append(f"  training scenarios simulated at the point: {tr['meet_every_limit']} of {tr['kept']} meet every "
                f"limit (tolerance {tr['tolerance']:.0e})")
+    if tr.get("start") and tr["start"] != "the nominal optimum":
+        out.append("  Ipopt did not converge from the nominal optimum at the first try; it started again from "
+                   f"{tr['start']}")
     if len(result.front) > 1:
         out.append("  front (share of training scenarios whose limits hold -> goal): " + ", ".join(
             f"{100 * f['share']:.0f} % -> {fmt(f['goal'], 5)}" for f in result.front))
