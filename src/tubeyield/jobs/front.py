@@ -272,7 +272,7 @@ def _refined_point(model, fstudy: Study, study: Study, spec, level: float, solve
     sense = ">=" if spec.x_sense == "max" else "<="
     verified = verify_and_refine(fstudy, model, solver, options, timing,
                                  extend=lambda m: m.add_level(LEVEL, spec.x, sense, level, x_scale))
-    if verified.model is model or not verified.check.passed:
+    if verified.model is model or not verified.check.passed or verified.acceptable_only:
         return None
     point = _point(verified.model, study, spec, level, solver)
     point["note"] = f"verified on a finer mesh of {verified.model.elements} elements"

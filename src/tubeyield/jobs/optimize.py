@@ -163,7 +163,8 @@ def _distinct_optima(study: Study, found: list) -> list:
 
 
 def _trusted(run: dict, verified) -> bool:
-    return not run["acceptable_only"] and verified.check.passed and verified.limits_hold
+    return not run["acceptable_only"] and not verified.acceptable_only and verified.check.passed \
+        and verified.limits_hold
 
 
 def _doubts(run: dict, verified) -> list[str]:
@@ -171,6 +172,8 @@ def _doubts(run: dict, verified) -> list[str]:
     out = []
     if run["acceptable_only"]:
         out.append("Ipopt stopped at an acceptable level only, not at its convergence tolerance")
+    if verified.acceptable_only:
+        out.append(f"on the refined mesh of {c.elements} elements Ipopt stopped at an acceptable level only")
     if not c.passed:
         out.append(f"the re-simulation differs by {c.max_rel_error:.2e} (tolerance {c.tolerance:.0e}) at "
                    f"{c.elements} elements")
