@@ -43,6 +43,9 @@ class HotSpot:
                 "tightened_by_K": self.tightened_by}
 
 
+AFTER_ACCEPTABLE_ITERATIONS = 500   # the recovery's iteration budget after a refined solve ended acceptable
+
+
 @dataclass
 class Verified:
     model: ReactorModel
@@ -91,9 +94,10 @@ def _refined(study: Study, model: ReactorModel, sim, n_new: int, solver, options
              extend=None):
     """The problem on an equidistributed mesh of n_new elements, solved from `sim`: (model, stopped at Ipopt's
     acceptable level only), or (None, False) when it does not converge. A solve that ends at the acceptable level is
-    kept (the re-simulation still judges the mesh, and the result is flagged) rather than solved again with the
-    recovery options: measured on an invented 16-species network with rate constants over 12 decades, the refined
-    mesh reached the acceptable level in 332 iterations and the recovery then ran to its limit of 3000 (120 s)."""
+    kept when the recovery options, given at most AFTER_ACCEPTABLE_ITERATIONS, do no better (the re-simulation still
+    judges the mesh, and the result is flagged): measured on an invented 16-species network with rate constants over
+    12 decades, the refined mesh reached the acceptable level in 332 iterations and the recovery then ran to its
+    limit of 3000 (120 s)."""
     floor = FLOOR_SHARE * sum(abs(v) for v in sim.u_in.values())
     errors = model.element_errors(sim, floor)
     zones = study.reactor.zones
@@ -107,14 +111,23 @@ def _refined(study: Study, model: ReactorModel, sim, n_new: int, solver, options
     timing["build"] = timing.get("build", 0.0) + time.perf_counter() - t
     if "T" in finer.decisions and finer.decisions["T"].profile:
         decisions["T"] = [T_fun(z) for z in finer.profile_positions()]
+    acceptable = None
     for extra in (REFINE_OPTIONS, RECOVERY_OPTIONS):
+        opts = {**extra, **options}
+        if acceptable is not None:
+            opts["max_iter"] = min(int(opts.get("max_iter", AFTER_ACCEPTABLE_ITERATIONS)), AFTER_ACCEPTABLE_ITERATIONS)
         finer.set_decisions(decisions)
         finer.initialize(sim)
-        res = timed_solve(solver, finer, timing, options={**extra, **options}, tee=tee)
+        res = timed_solve(solver, finer, timing, options=opts, tee=tee)
         if res.solver.termination_condition in OK_CONDITIONS:
             return finer, False
         if res.solver.termination_condition in ACCEPTABLE_CONDITIONS:
-            return finer, True
+            if acceptable is not None:
+                return finer, True
+            acceptable = finer.snapshot()
+    if acceptable is not None:
+        finer.restore(acceptable)
+        return finer, True
     return None, False
 
 
