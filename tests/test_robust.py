@@ -94,6 +94,38 @@ def test_the_validated_shares_agree_with_a_simulation_of_every_fresh_scenario():
         assert p["expected_goal"] == pytest.approx(sum(r[0] for r in rows) / 40, rel=1e-12)
 
 
+def test_a_validation_that_contradicts_the_promise_is_said(monkeypatch):
+    """Fresh scenarios from a slower catalyst than the training ones (k1 below every training value) stand in for a
+    problem where the scenario bound does not hold: the robust point, made to convert 90 % in every training
+    scenario, misses the limit in nearly all of them. The result says the validation contradicts its promise and the
+    report's summary makes it a stop; with fresh scenarios drawn as the training ones it says nothing."""
+    import tubeyield.jobs.robust as robust_job
+    from tubeyield.report.summary import summary
+
+    study = study_from_toml(SERIES)
+    honest = robust(study, validation=60, workers=1)
+    assert honest.status == "optimal", honest.message
+    assert honest.guarantee["contradicted_by_validation"] is False and not honest.warnings
+
+    real_draws = robust_job.draws
+
+    def slower(study_, n, seed):
+        rows = real_draws(study_, n, seed)
+        if seed == study_.robust.seed:
+            return rows                                      # the training scenarios
+        return [{**r, "reaction.one.k": 0.7 * r["reaction.one.k"]} for r in rows]
+
+    monkeypatch.setattr(robust_job, "draws", slower)
+    result = robust(study, validation=60, workers=1)
+    assert result.status == "optimal", result.message
+    assert result.points[-1]["share"] < 0.1
+    assert result.guarantee["contradicted_by_validation"] is True
+    assert any("this run promises" in w for w in result.warnings), result.warnings
+    box = summary(None, robust=result.to_dict())
+    assert any("its run promises" in s for s in box["stops"]), box["stops"]
+    assert not any("its run promises" in s for s in summary(None, robust=honest.to_dict())["stops"])
+
+
 def test_the_scenario_bound_is_the_published_formula():
     """Campi and Garatti (2008): with d decisions and N scenarios, eps solves sum_{i<d} C(N,i) eps^i (1-eps)^(N-i)
     = beta; for d = 1 that is (1 - eps)^N = beta, eps = 1 - beta^(1/N) (the classical one-dimensional case)."""

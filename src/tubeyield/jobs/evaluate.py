@@ -8,7 +8,7 @@ from tubeyield.errors import SimulationFailed, StudyError
 from tubeyield.jobs.result import Result
 from tubeyield.reactor.metrics import all_metrics
 from tubeyield.reactor.simulate import simulate
-from tubeyield.solve.multistart import violation
+from tubeyield.solve.multistart import limit_misses, violation
 from tubeyield.study.schema import Study
 from tubeyield.study.units import convert, decision_to_user, to_si
 
@@ -109,18 +109,9 @@ def in_scenarios(args) -> list[tuple]:
         try:
             sc = apply_values(study, values)
             sim = simulate(sc, point, rtol=1e-8)
-            quantities, holds = [], []
-            for lim in sc.goal.limits:
-                if lim.metric is None:
-                    q = sim.max_temperature() if lim.sense == "<=" else sim.min_temperature()
-                    scale = lim.bound
-                else:
-                    q = sim.metric(lim.metric)
-                    scale = 1.0 if lim.metric.kind in ("conversion", "yield", "selectivity") else \
-                        max(abs(lim.bound), 1e-300)
-                miss = (q - lim.bound) if lim.sense == "<=" else (lim.bound - q)
-                quantities.append(q)
-                holds.append(bool(miss <= tolerance * scale))
+            misses = limit_misses(sc, sim)
+            quantities = [q for q, _, _ in misses]
+            holds = [bool(miss <= tolerance * scale) for _, miss, scale in misses]
             goal = metric_display(sc.goal.metric, sim.metric(sc.goal.metric))[0]
             out.append((goal, all(holds), quantities, holds))
         except (SimulationFailed, ArithmeticError):

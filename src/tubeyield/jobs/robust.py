@@ -456,6 +456,15 @@ def robust(study: Study, *, scenarios: int | None = None, share: float | None = 
               "scenarios miss a limit"] if training_ok < len(kept) else []) +
             (["Ipopt stopped at an acceptable level only"] if acceptable_only else []))
     warnings = []
+    promised = min(spec.share, 1.0 - eps) if eps is not None else spec.share
+    mine = points[-1]
+    contradicted = mine["share_high"] < promised
+    if contradicted:
+        # the fresh scenarios contradict the promise (the scenario bound is exact for convex programs only): said,
+        # and the report makes it a stop
+        warnings.append(f"on {mine['n']} fresh scenarios the robust point meets every limit in {100 * mine['share']:.1f} "
+                        f"% (95 % interval up to {100 * mine['share_high']:.1f} %), below the {100 * promised:.1f} % "
+                        "this run promises: use more training scenarios or a higher share")
     if left_out:
         warnings.append(f"{left_out} training scenario(s) could not be simulated at the nominal optimum and were "
                         "left out of the NLP")
@@ -469,7 +478,8 @@ def robust(study: Study, *, scenarios: int | None = None, share: float | None = 
               "nominal": nominal.goal.get("value")},
         decisions=_user_decisions(study, robust_si), scenarios=N, discarded=k_total, decision_count=d,
         share_required=spec.share,
-        guarantee={"epsilon": eps, "confidence": spec.confidence, "note": note,
+        guarantee={"epsilon": eps, "confidence": spec.confidence, "note": note, "promised_share": promised,
+                   "contradicted_by_validation": contradicted,
                    "statement": (f"with confidence {spec.confidence:g}, the probability that a new scenario "
                                  f"violates a limit at this point is at most {eps:.3g} ({note})") if eps is not None
                    else f"{N} scenarios are too few for a bound with {d} decisions and {k_total} discarded"},

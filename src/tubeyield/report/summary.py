@@ -167,6 +167,11 @@ def _recommend_robust(out: dict, robust: dict, g: dict) -> None:
                   f"{g['metric']} against the nominal optimum, which meets every limit in only "
                   f"{100 * nominal['share']:.1f} % of the same scenarios." if nominal else ""),
         "bound": (robust.get("guarantee") or {}).get("statement", "")}
+    promise = robust.get("guarantee") or {}
+    if promise.get("contradicted_by_validation"):
+        out["stops"].append(f"the robust point meets every limit in {100 * mine['share']:.1f} % of the fresh "
+                            f"scenarios (95 % interval up to {100 * mine['share_high']:.1f} %), below the "
+                            f"{100 * promise['promised_share']:.1f} % its run promises")
     if mine["share"] < FEW_SCENARIOS:
         out["stops"].append(f"the robust point meets every limit in only {100 * mine['share']:.1f} % of the fresh "
                             "scenarios")

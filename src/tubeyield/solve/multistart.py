@@ -62,8 +62,10 @@ def design(study: Study, n: int, seed: int = 0) -> list[dict]:
     return points
 
 
-def violation(study: Study, sim: Simulation) -> float:
-    total = 0.0
+def limit_misses(study: Study, sim: Simulation) -> list[tuple[float, float, float]]:
+    """For each limit of the study, in order: (its quantity on the simulation in SI, how far it misses its bound,
+    negative when it holds with room, the scale a miss is measured against: 1 for fractions, the bound otherwise)."""
+    out = []
     for lim in study.goal.limits:
         if lim.metric is None:
             value = sim.max_temperature() if lim.sense == "<=" else sim.min_temperature()
@@ -71,9 +73,13 @@ def violation(study: Study, sim: Simulation) -> float:
         else:
             value = sim.metric(lim.metric)
             scale = 1.0 if lim.metric.kind in ("conversion", "yield", "selectivity") else max(abs(lim.bound), 1e-300)
-        miss = (value - lim.bound) if lim.sense == "<=" else (lim.bound - value)
-        total += max(0.0, miss) / scale
-    return total
+        out.append((value, (value - lim.bound) if lim.sense == "<=" else (lim.bound - value), scale))
+    return out
+
+
+def violation(study: Study, sim: Simulation) -> float:
+    """The sum of the limits' misses, each relative to its scale (0 when every limit holds)."""
+    return sum(max(0.0, miss) / scale for _, miss, scale in limit_misses(study, sim))
 
 
 def screen(study: Study, points: list[dict]) -> list[Candidate]:
