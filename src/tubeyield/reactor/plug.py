@@ -27,8 +27,42 @@ from tubeyield.reactor.mesh import breakpoints, initial_edges, radau_roots
 from tubeyield.reactor.model import T_STATE_BOUNDS, Handle, ReactorModel
 
 
+# States of trace species may dip below zero by this share of the total inlet flow. The collocation solution of a
+# species that a fast reaction consumes while it is a trace is negative at some points: for y' = -k y on an element
+# of length h with k h >> 1 the three Radau stage values are (2.4, -1.7, 3.0) y0 / (k h) (computed from the
+# collocation equations; Radau IIA, Hairer and Wanner, Solving Ordinary Differential Equations II, 2nd ed. 1996,
+# sec. IV.5), and traces of 1e-20 sit in front of a bound of zero. Ipopt's barrier term then pushes on them with a
+# force mu / slack comparable to the goal's own gradient, a wall the optimum stops at. Measured on the bench's invented
+# networks, rate constants over 12 decades, one start:
+#   bound 0             16 species 80-198 s, unverified; 20 species 15.8 s, unverified (a first solve stopped at the
+#                       acceptable level 3 % below the optimum, bound multipliers of 1e10); 50 species failed, 284 s
+#   dip 1e-15 of inlet  20 species optimal in 18 iterations; 16 species "optimal" at tau 330 s, a wall: the
+#                       re-simulated yield still rises to tau 372 s
+#   dip 1e-9 of inlet   16 species 8.3 s, 20 species 5.5 s, 50 species 55 s: each optimal, verified, and at the maximum
+#                       of a re-simulated scan over tau
+#   no bound            16 species: a false optimum at tau 626 s (yield 0.398 against 0.402 re-simulated) that trades
+#                       on negative concentrations
+# The dip is 1e-3 of the verification's absolute floor (reactor/verify.py, FLOOR_SHARE): an outlet that sits at it
+# fails the check and refines the mesh. It equals the smallest typical size a species is scaled by (state_scales), so
+# a trace species' scaled state is bounded at -1. Species in a rate law with an order that is not a whole number keep
+# the bound of zero: c^n is undefined below it, or regularized only down to -FRACTIONAL_ORDER_DELTA.
+TRACE_DIP_SHARE = 1e-9
+
+
 class PlugModel(ReactorModel):
     kind = "plug"
+
+    def state_floors(self) -> dict:
+        """Lower bound of each species' scaled state: -TRACE_DIP_SHARE of the total inlet flow for species that
+        appear in the rate laws with whole-number orders only (forward and reverse; an order a fit estimates is a
+        variable and counts as not whole), zero for the others."""
+        held = set()
+        for r in self.kin.reactions:
+            for s, n in tuple(r.orders) + tuple(r.reverse_orders):
+                if not (isinstance(n, (int, float)) and float(n).is_integer() and n >= 0):
+                    held.add(s)
+        total = sum(abs(float(pyo.value(self.u0[s]))) for s in self.study.symbols) or 1.0
+        return {s: 0.0 if s in held else -TRACE_DIP_SHARE * total / self.state_scale[s] for s in self.study.symbols}
 
     def _build(self) -> None:
         m, st = self.m, self.study
@@ -48,7 +82,8 @@ class PlugModel(ReactorModel):
         m.S = pyo.Set(initialize=symbols, ordered=True)
         m.J = pyo.Set(initialize=[r.id for r in st.reactions], ordered=True)
         sc = self.state_scale
-        m.u = pyo.Var(m.S, m.z, bounds=(0.0, None),
+        floor = self.state_floors()
+        m.u = pyo.Var(m.S, m.z, bounds=lambda m, s, z: (floor[s], None),
                       initialize=lambda m, s, z: pyo.value(self.u0[s]) / sc[s])
         m.du = dae.DerivativeVar(m.u, wrt=m.z)
         energy = st.reactor.mode.energy_balance
