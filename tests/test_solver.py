@@ -110,3 +110,26 @@ def test_unsupported_operator_is_refused_clearly():
 ])
 def test_status_mapping(status, condition):
     assert termination_of(status)[1] == condition
+
+
+def test_the_bundled_blas_runs_one_thread_unless_the_user_chose(monkeypatch):
+    # solve/ipopt.py: casadi's OpenBLAS threads made a 50-species network 5x slower and Ipopt's path vary run to run
+    import ctypes
+    import os
+
+    import casadi
+
+    import tubeyield.solve.ipopt as ipopt
+    lib = ctypes.CDLL(os.path.join(os.path.dirname(casadi.__file__), ipopt.BLAS_LIBRARY))
+    monkeypatch.setattr(ipopt, "_blas_threads_set", False)
+    monkeypatch.setenv("OPENBLAS_NUM_THREADS", "2")
+    assert ipopt.single_threaded_blas() is None             # the user's choice stands
+    monkeypatch.delenv("OPENBLAS_NUM_THREADS")
+    lib.openblas_set_num_threads(2)
+    had = lib.openblas_get_num_threads()                   # 2, or fewer on a machine with fewer cores
+    assert ipopt.single_threaded_blas() == had
+    assert lib.openblas_get_num_threads() == 1
+    assert ipopt.single_threaded_blas() is None             # once per process
+    _, res = solve(small())
+    assert res.solver.termination_condition == TerminationCondition.optimal
+    assert lib.openblas_get_num_threads() == 1

@@ -329,9 +329,38 @@ def _import(written: _Written):
     return builder, list(builder.x), list(builder.g)     # SWIG lists are copied on every access: read once
 
 
+# The OpenBLAS that the casadi wheel bundles for MUMPS starts one thread per core. On the collocation KKT systems
+# (small dense fronts) the threads spin rather than work, and their reductions make round-off, and so Ipopt's path,
+# differ from run to run. Measured on the bench's invented 50-species stiff network, one solve on 40 elements (2-core
+# x86_64): 60 iterations in 14.4 s, 13.7 s of it system time, with the threads; 15 iterations in 2.6 s with one.
+# One thread is set unless the user chose a number (OPENBLAS_NUM_THREADS); numpy's own OpenBLAS is not touched.
+BLAS_LIBRARY = "libcasadi-tp-openblas.so"
+_blas_threads_set = False
+
+
+def single_threaded_blas() -> int | None:
+    """Set casadi's bundled OpenBLAS to one thread (once per process; not when OPENBLAS_NUM_THREADS is set).
+    Returns the number of threads it had, or None when nothing was done."""
+    global _blas_threads_set
+    if _blas_threads_set or "OPENBLAS_NUM_THREADS" in os.environ:
+        return None
+    _blas_threads_set = True
+    import ctypes
+    import casadi
+    path = os.path.join(os.path.dirname(casadi.__file__), BLAS_LIBRARY)
+    try:
+        lib = ctypes.CDLL(path)
+        before = int(lib.openblas_get_num_threads())
+        lib.openblas_set_num_threads(1)
+    except (OSError, AttributeError):
+        return None              # a casadi build without its own OpenBLAS: nothing to set
+    return before
+
+
 def _build(written: _Written, pinned_mask: np.ndarray, opts: dict, tee: bool) -> _Built:
     import casadi
 
+    single_threaded_blas()
     t0 = time.perf_counter()
     builder, xs, gs = _import(written)
     free = np.nonzero(~pinned_mask)[0]
