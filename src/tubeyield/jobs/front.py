@@ -28,7 +28,7 @@ import numpy as np
 
 from tubeyield import __version__
 from tubeyield import status as st
-from tubeyield.jobs.optimize import SAME_OPTIMUM, optimize
+from tubeyield.jobs.optimize import HELD_BY_STATE_BOUND, SAME_OPTIMUM, optimize
 from tubeyield.jobs.problem import prepare
 from tubeyield.jobs.refine import verify_and_refine
 from tubeyield.jobs.result import Result, finite_json
@@ -211,6 +211,11 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
         result.status = st.FAILED
     elif notes:
         result.status = st.PARTIAL
+    held = [w for end in (y_opt, x_opt) for w in end.warnings if w.startswith(HELD_BY_STATE_BOUND)]
+    if held:
+        # said, not made a failure: the front's other points are verified; the end may lie further out
+        result.message = "; ".join(([result.message] if result.message else []) +
+                                   [f"an end of the front may lie further out: {held[0]}"])
     timing["total"] = time.perf_counter() - t0
     return result
 

@@ -144,11 +144,22 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
                                "verification; the best verified point is reported")
     if status == st.UNVERIFIED:
         result.message = "NOT VERIFIED: " + "; ".join(_doubts(run, verified))
+    held = verified.model.state_bound_holds()
+    if held:
+        s, z, m = held[0]
+        result.warnings.append(
+            f"{HELD_BY_STATE_BOUND} on the state of {s} at {z:.4g} of the reactor length "
+            f"(multiplier {m:.2g}), a guard for the iterations and not a limit of the reactor: a better point may "
+            "lie beyond it (a known defect of the collocation model; check the point by simulation)")
     from tubeyield.study.read_kinetics import extrapolation
     note = extrapolation(study, result.decisions_si)
     if note:
         result.warnings.append(note)
     return result
+
+
+# The opening of the warning that a state bound holds the optimum (ReactorModel.state_bound_holds); the front matches it.
+HELD_BY_STATE_BOUND = "the optimum is held by the solver's lower bound"
 
 
 def _distinct_optima(study: Study, found: list) -> list:

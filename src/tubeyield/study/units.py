@@ -16,7 +16,6 @@ import pint
 from tubeyield.errors import StudyError
 
 
-
 def _registry() -> pint.UnitRegistry:
     """pint's registry, its parsed definitions cached on disk in the user's cache folder (0.03 s to load instead of
     0.15 s to parse on every command); without a writable cache folder it is parsed as before."""
