@@ -69,11 +69,14 @@ class CollocationModel:
         tau = s_tau * pb.tau[1]
         Xk = X0
         self.states = []
+        # Species in no rate law have no bound inside elements (their stage values feed nothing back), as in
+        # tubeyield's model; every state is at zero or above at the element ends.
+        inert = ~np.any(pb.orders != 0, axis=0)
         for e in range(elements):
             Xc = []
             for k in range(1, K + 1):
                 x = ca.SX.sym(f"x_{e}_{k}", n)
-                w.append(x); lbw += [0.0] * n; ubw += [ca.inf] * n
+                w.append(x); lbw += [-ca.inf if inert[i] and k < K else 0.0 for i in range(n)]; ubw += [ca.inf] * n
                 Xc.append(x)
             for k in range(1, K + 1):
                 xp = D[0, k] * Xk

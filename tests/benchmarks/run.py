@@ -167,10 +167,14 @@ def case_front(repeats: int, scipy_cap: float, rows: list, notes: list, single_t
            "tubeyield_s": t_ty,
            "tubeyield_points": len(pts), "casadi_s": t_ca, "casadi_max_abs_diff": max(diffs) if diffs else None,
            "front_over_single": t_ty / single_time, "stages": fr.timing}
-    row["casadi_agrees"] = bool(diffs) and max(diffs) <= AGREE
+    unsolved = [i for i, a in enumerate(ca_out) if a["status"] != "Solve_Succeeded"]
+    row["casadi_unsolved_levels"] = unsolved
+    row["casadi_agrees"] = bool(diffs) and max(diffs) <= AGREE and not unsolved
     row["ratio_casadi"] = t_ty / t_ca if row["casadi_agrees"] else None
     if not row["casadi_agrees"]:
-        notes.append(f"case d: the casadi front differs by up to {max(diffs):.2e}; its time is not compared")
+        notes.append(f"case d: the casadi front differs by up to {max(diffs):.2e}"
+                     + (f", and Ipopt did not succeed at its levels {unsolved}" if unsolved else "")
+                     + "; its time is not compared")
     shoot = baseline_scipy.Shooting(pb)
     x0 = shoot.pack(s["tau"], s["ratio"], s["T"])
     t0 = time.perf_counter()

@@ -150,7 +150,8 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
         result.warnings.append(
             f"{HELD_BY_STATE_BOUND} on the state of {s} at {z:.4g} of the reactor length "
             f"(multiplier {m:.2g}), a guard for the iterations and not a limit of the reactor: a better point may "
-            "lie beyond it (a known defect of the collocation model; check the point by simulation)")
+            "lie beyond it (the element holding it could not be split further: numerics.max_elements or the shortest "
+            "element; check the point by simulation)")
     from tubeyield.study.read_kinetics import extrapolation
     note = extrapolation(study, result.decisions_si)
     if note:

@@ -19,7 +19,7 @@ import time
 from dataclasses import dataclass
 
 from tubeyield.jobs.problem import prepare, timed_solve
-from tubeyield.reactor.mesh import breakpoints, equidistribute
+from tubeyield.reactor.mesh import breakpoints, equidistribute, min_element
 from tubeyield.reactor.model import ReactorModel
 from tubeyield.reactor.verify import FLOOR_SHARE, Check, compare, reference
 from tubeyield.solve import ACCEPTABLE_CONDITIONS, OK_CONDITIONS
@@ -27,6 +27,7 @@ from tubeyield.solve.options import RECOVERY_OPTIONS, REFINE_OPTIONS
 from tubeyield.study.schema import Study
 
 TIGHTENING_ROUNDS = 4      # re-solves that tighten a temperature limit exceeded between mesh points
+HOLD_SPLITS = 8            # re-solves with the elements split where a state bound holds the optimum
 
 
 @dataclass
@@ -71,15 +72,29 @@ def verify_and_refine(study: Study, model: ReactorModel, solver, options: dict, 
     model what the caller added to the first beyond the study's goal and limits (a front's level constraint)."""
     tol = study.numerics.check_tolerance
     sim, check = _checked(model, tol, timing)
-    notes, refinements, acceptable_only = [], 0, False
-    while not check.passed and model.edges is not None:
-        n_new = min(2 * model.elements, study.numerics.max_elements)
-        if n_new <= model.elements:
-            notes.append(f"the mesh reached numerics.max_elements = {study.numerics.max_elements}")
-            break
-        finer, acceptable = _refined(study, model, sim, n_new, solver, options, timing, tee, extend)
+    notes, refinements, splits, acceptable_only = [], 0, 0, False
+    while model.edges is not None:
+        if not check.passed:
+            n_new = min(2 * model.elements, study.numerics.max_elements)
+            if n_new <= model.elements:
+                notes.append(f"the mesh reached numerics.max_elements = {study.numerics.max_elements}")
+                break
+            floor = FLOOR_SHARE * sum(abs(v) for v in sim.u_in.values())
+            edges = equidistribute(model.edges, model.element_errors(sim, floor), n_new, study.reactor.points,
+                                   fixed=breakpoints(study.reactor.zones))
+            what = f"the refined mesh of {n_new} elements"
+        else:
+            held = model.state_bound_holds()
+            if not held or splits >= HOLD_SPLITS:
+                break
+            edges = split_elements(model.edges, {model.element_of(z) for _, z, _ in held}, study.reactor.points)
+            if len(edges) - 1 > study.numerics.max_elements or len(edges) == len(model.edges):
+                break
+            splits += 1
+            what = f"the mesh with the elements split where a state bound held the optimum ({len(edges) - 1} elements)"
+        finer, acceptable = _refined(study, model, sim, edges, solver, options, timing, tee, extend)
         if finer is None:
-            notes.append(f"the refined mesh of {n_new} elements did not converge, even with the recovery options")
+            notes.append(f"{what} did not converge, even with the recovery options")
             break
         model, refinements = finer, refinements + 1
         acceptable_only = acceptable_only or acceptable
@@ -90,18 +105,24 @@ def verify_and_refine(study: Study, model: ReactorModel, solver, options: dict, 
     return Verified(model, check, sim, hot, held, acceptable_only)
 
 
-def _refined(study: Study, model: ReactorModel, sim, n_new: int, solver, options: dict, timing: dict, tee: bool,
+def split_elements(edges, elements, points: int) -> list[float]:
+    """The mesh with each of the given elements cut in two halves (halves shorter than min_element are not made)."""
+    shortest = min_element(points)
+    out = list(edges)
+    for k in sorted(elements):
+        if edges[k + 1] - edges[k] >= 2 * shortest:
+            out.append(0.5 * (edges[k] + edges[k + 1]))
+    return sorted(out)
+
+
+def _refined(study: Study, model: ReactorModel, sim, edges: list, solver, options: dict, timing: dict, tee: bool,
              extend=None):
-    """The problem on an equidistributed mesh of n_new elements, solved from `sim`: (model, stopped at Ipopt's
-    acceptable level only), or (None, False) when it does not converge. A solve that ends at the acceptable level is
+    """The problem on the mesh `edges`, solved from `sim`: (model, stopped at Ipopt's acceptable level only), or
+    (None, False) when it does not converge. A solve that ends at the acceptable level is
     kept when the recovery options, given at most AFTER_ACCEPTABLE_ITERATIONS, do no better (the re-simulation still
     judges the mesh, and the result is flagged): measured on an invented 16-species network with rate constants over
     12 decades, the refined mesh reached the acceptable level in 332 iterations and the recovery then ran to its
     limit of 3000 (120 s)."""
-    floor = FLOOR_SHARE * sum(abs(v) for v in sim.u_in.values())
-    errors = model.element_errors(sim, floor)
-    zones = study.reactor.zones
-    edges = equidistribute(model.edges, errors, n_new, study.reactor.points, fixed=breakpoints(zones))
     decisions = model.decision_values()
     T_fun = model.temperature_function()
     t = time.perf_counter()

@@ -21,6 +21,7 @@ import bisect
 import numpy as np
 import pyomo.dae as dae
 import pyomo.environ as pyo
+from pyomo.core.expr.visitor import identify_variables
 
 from tubeyield.reactor.balances import concentrations, math_for, wall_term
 from tubeyield.reactor.mesh import breakpoints, initial_edges, radau_roots
@@ -165,6 +166,7 @@ class PlugModel(ReactorModel):
             m.energy_balance = pyo.Constraint(inner, rule=energy_rule)
             m.inlet_T = pyo.Constraint(expr=m.theta[0.0] == m.T_in)
 
+        self._free_inert_stages()
         self.u_out = {s: sc[s] * m.u[s, 1.0] for s in symbols}
         self.T_out = theta(1.0)
         if heat == "isothermal":
@@ -175,6 +177,39 @@ class PlugModel(ReactorModel):
             self.T_points = [m.Tp[k] for k in range(len(self.edges))]
         else:
             self.T_points = [m.theta[z] for z in self.points]
+
+    def inert_species(self) -> list[str]:
+        """Species whose state enters neither a rate nor the energy balance (for a liquid, products no rate law
+        uses): their stage values never feed back into the other balances. Read from the built expressions at the
+        first interior point (every point has the same structure)."""
+        m = self.m
+        z = self.inner[0]
+        used = set()
+        exprs = [m.rate[j, z] for j in m.J]
+        if self.study.reactor.mode.energy_balance:
+            exprs.append(m.energy_balance[z].body)
+        for e in exprs:
+            for v in identify_variables(e, include_fixed=True):
+                if v.parent_component() is m.u:
+                    used.add(v.index()[0])
+        return [s for s in self.study.symbols if s not in used]
+
+    def _free_inert_stages(self) -> None:
+        """Drop the state bound of inert species (inert_species) at the stage points inside elements; the element
+        edges keep it. A stage value inside an element is an intermediate of the Radau formula, not a value of the
+        solution: for a product formed from an intermediate that rises steeply in the first element, the first
+        stage value is its inlet value plus h tau (0.197 r1 - 0.066 r2 + 0.024 r3) / C_s (the first row of the
+        three-stage Radau IIA matrix; Hairer and Wanner 1996, sec. IV.5, from memory, and recomputed from the
+        collocation conditions), negative when its rate r1 at the first stage is small against r2. Bounded, it held the highest conversion
+        under a byproduct cap on the demo network at 0.98598, where single shooting with scipy reaches 0.99814.
+        An inert species cannot trade on a negative stage value (nothing else sees it), and its edge values are
+        sums of its rates with positive weights; the species that do feed back keep their bounds inside elements
+        too: without them, temperature-profile searches ended at worse local optima."""
+        m = self.m
+        for s in self.inert_species():
+            for z in self.inner:
+                if self._local[z][1] != 1.0:
+                    m.u[s, z].setlb(None)
 
     # ---------------------------------------------------------------------------------------------------- helpers
 
