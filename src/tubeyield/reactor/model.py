@@ -245,6 +245,31 @@ class ReactorModel:
         m.goal = pyo.Objective(expr=self.metric(metric) / scale, sense=pyo.maximize if sense == "max" else pyo.minimize)
         self.goal_metric, self.goal_sense, self.goal_scale = metric, sense, scale
 
+    def set_goals(self, goals: list) -> None:
+        """One objective for several goals of the same sense, (metric, sense, scale) each, weighted by pinned
+        variables: `use_goal(k)` selects goal k by its weight alone, so the written problem and the built solver
+        serve every goal (a front's two ends on one model)."""
+        m = self.m
+        senses = {sense for _, sense, _ in goals}
+        if len(senses) != 1:
+            raise ValueError("set_goals takes goals of one sense")
+        if m.component("goal") is not None:
+            m.del_component("goal")
+        m.goal_weight = pyo.Var(range(len(goals)), initialize=0.0, bounds=(0.0, 0.0))
+        m.goal = pyo.Objective(expr=sum(m.goal_weight[k] * self.metric(metric) / scale
+                                        for k, (metric, _, scale) in enumerate(goals)),
+                               sense=pyo.maximize if senses.pop() == "max" else pyo.minimize)
+        self._goals = list(goals)
+        self.use_goal(0)
+
+    def use_goal(self, k: int) -> None:
+        """Make goal k of set_goals the objective (its weight 1, the others 0)."""
+        for i, w in self.m.goal_weight.items():
+            w.setlb(1.0 if i == k else 0.0)
+            w.setub(1.0 if i == k else 0.0)
+            w.set_value(1.0 if i == k else 0.0, skip_validation=True)
+        self.goal_metric, self.goal_sense, self.goal_scale = self._goals[k]
+
     def add_limits(self, limits) -> None:
         for i, lim in enumerate(limits):
             self.limits.append(self._limit(f"limit_{len(self.limits)}", lim))
