@@ -1,7 +1,7 @@
 """Optima held short of the true optimum by state bounds, checked against single shooting with scipy alone.
 
 State bounds guard Ipopt's iterates but are not part of the model (reactor/plug.py, TRACE_DIP_SHARE and
-PlugModel.inert_species): where the collocation solution dips below one, the optimizer stops at the bound. Both cases
+PlugModel.free_inert_stages; jobs/refine.py): where the collocation solution dips below one, the optimizer stops at the bound. Both cases
 here were found that way and are fixed; a third, still open, is told to the user by a warning. The references use
 nothing of tubeyield's model, rate code or reference simulation: the plain-array balances of
 tests/benchmarks/problem.py integrated by solve_ivp (LSODA, rtol 1e-10, atol 1e-14; tests/benchmarks/baseline_scipy.py),
@@ -74,8 +74,8 @@ def test_the_highest_conversion_under_a_byproduct_cap_is_the_one_single_shooting
     # yield:C <= 0.10. tubeyield stopped at 0.985983 (0.985890 with a bound of zero), reported optimal and verified,
     # held there by the dimer E's state bound at the first collocation point (multiplier 8.1e3), while SLSQP on single
     # shooting reaches 0.998138, from the screened start and from tubeyield's point alike.
-    # - As the demo has it, E enters no rate law: its stage values inside elements are unbounded
-    #   (PlugModel.inert_species).
+    # - As the demo has it, E enters no rate law: the verification finds the bound holding the optimum and frees
+    #   the stage values inside elements of such species (PlugModel.free_inert_stages), then solves again.
     # - With a negligible reaction E -> F (k = 1e-12 1/s) E enters a rate law and keeps its bounds; the optimum is
     #   held at 0.985983 again on the starting mesh, and the verification splits the element that holds it
     #   (jobs/refine.py, split_elements): once is enough here.

@@ -336,6 +336,21 @@ class ReactorModel:
                     out.append((s, float(z), m))
         return sorted(out, key=lambda h: -h[2])
 
+    def inert_species(self) -> list[str]:
+        """Species whose states feed nothing back into the balances (reactor/plug.py); none for tank models."""
+        return []
+
+    def free_inert_stages(self) -> list[str]:
+        """Drop the state bounds of species that feed nothing back, at the stage points inside elements; returns the
+        species freed. The plug-flow model has such points (reactor/plug.py); tank models have none."""
+        return []
+
+    def bound_inert_stages(self) -> None:
+        """Undo free_inert_stages."""
+
+    def inside_element(self, z: float) -> bool:
+        return False
+
     def snapshot(self) -> dict:
         """Values of every variable and the loaded duals and reduced costs, to restore a solution later."""
         values = [(v, v.value) for v in self.m.component_data_objects(pyo.Var, descend_into=True)]

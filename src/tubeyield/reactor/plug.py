@@ -52,6 +52,7 @@ TRACE_DIP_SHARE = 1e-9
 
 class PlugModel(ReactorModel):
     kind = "plug"
+    inert_stages_free = False
 
     def state_floors(self) -> dict:
         """Lower bound of each species' scaled state: -TRACE_DIP_SHARE of the total inlet flow for species that
@@ -166,7 +167,6 @@ class PlugModel(ReactorModel):
             m.energy_balance = pyo.Constraint(inner, rule=energy_rule)
             m.inlet_T = pyo.Constraint(expr=m.theta[0.0] == m.T_in)
 
-        self._free_inert_stages()
         self.u_out = {s: sc[s] * m.u[s, 1.0] for s in symbols}
         self.T_out = theta(1.0)
         if heat == "isothermal":
@@ -194,22 +194,45 @@ class PlugModel(ReactorModel):
                     used.add(v.index()[0])
         return [s for s in self.study.symbols if s not in used]
 
-    def _free_inert_stages(self) -> None:
+    def free_inert_stages(self) -> list[str]:
         """Drop the state bound of inert species (inert_species) at the stage points inside elements; the element
-        edges keep it. A stage value inside an element is an intermediate of the Radau formula, not a value of the
-        solution: for a product formed from an intermediate that rises steeply in the first element, the first
-        stage value is its inlet value plus h tau (0.197 r1 - 0.066 r2 + 0.024 r3) / C_s (the first row of the
-        three-stage Radau IIA matrix; Hairer and Wanner 1996, sec. IV.5, from memory, and recomputed from the
-        collocation conditions), negative when its rate r1 at the first stage is small against r2. Bounded, it held the highest conversion
-        under a byproduct cap on the demo network at 0.98598, where single shooting with scipy reaches 0.99814.
-        An inert species cannot trade on a negative stage value (nothing else sees it), and its edge values are
-        sums of its rates with positive weights; the species that do feed back keep their bounds inside elements
-        too: without them, temperature-profile searches ended at worse local optima."""
-        m = self.m
-        for s in self.inert_species():
+        edges keep it. Returns the species freed (none the second time).
+
+        A stage value inside an element is an intermediate of the Radau formula, not a value of the solution: for a
+        product formed from an intermediate that rises steeply in the first element, the first stage value is its
+        inlet value plus h tau (0.197 r1 - 0.066 r2 + 0.024 r3) / C_s (the first row of the three-stage Radau IIA
+        matrix; Hairer and Wanner 1996, sec. IV.5, from memory, and recomputed from the collocation conditions),
+        negative when its rate r1 at the first stage is small against r2. Bounded, it held the highest conversion
+        under a byproduct cap on the demo network at 0.98598, where single shooting with scipy reaches 0.99814. An
+        inert species cannot trade on a negative stage value (nothing else sees it), and its edge values are sums of
+        its rates with positive weights. The verification calls this only where such a bound holds an optimum
+        (jobs/refine.py): freed from the start, the bounds no longer kept the other species' stage values in check on
+        the bench's invented 20-species network, whose optimum moved by 3e-8 to a point that then needed 80-160
+        elements to verify (4.5 s became 10-26 s, once unverified)."""
+        if self.inert_stages_free:
+            return []
+        freed = self.inert_species()
+        self._bound_stages(freed, None)
+        self.inert_stages_free = True
+        return freed
+
+    def bound_inert_stages(self) -> None:
+        """Undo free_inert_stages."""
+        if self.inert_stages_free:
+            floor = self.state_floors()
+            for s in self.inert_species():
+                self._bound_stages([s], floor[s])
+            self.inert_stages_free = False
+
+    def _bound_stages(self, species, lower) -> None:
+        for s in species:
             for z in self.inner:
-                if self._local[z][1] != 1.0:
-                    m.u[s, z].setlb(None)
+                if self.inside_element(z):
+                    self.m.u[s, z].setlb(lower)
+
+    def inside_element(self, z: float) -> bool:
+        """Whether collocation point z is a stage point inside an element (not an element edge)."""
+        return self._local.get(z, (0, 0.0))[1] not in (0.0, 1.0)
 
     # ---------------------------------------------------------------------------------------------------- helpers
 
