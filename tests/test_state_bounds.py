@@ -87,6 +87,8 @@ def test_the_highest_conversion_under_a_byproduct_cap_is_the_one_single_shooting
     assert result.status == st.OPTIMAL, result.message
     assert not [w for w in result.warnings if w.startswith(HELD_BY_STATE_BOUND)], result.warnings
     assert result.check.refinements == (1 if extra else 0)
+    said = "its element was split (41 elements)" if extra else "the bounds of C, D, E, W inside elements"
+    assert any(said in n for n in result.check.notes), result.check.notes      # and the user is told how
 
     pb = from_study(study)
     shoot = Shooting(pb)

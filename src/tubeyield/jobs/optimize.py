@@ -159,7 +159,8 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
     return result
 
 
-# The opening of the warning that a state bound holds the optimum (ReactorModel.state_bound_holds); the front matches it.
+# The opening of the warning that a state bound holds the optimum (ReactorModel.state_bound_holds); the front
+# matches it.
 HELD_BY_STATE_BOUND = "the optimum is held by the solver's lower bound"
 
 

@@ -97,6 +97,8 @@ def verify_and_refine(study: Study, model: ReactorModel, solver, options: dict, 
             inert = set(model.inert_species())
             if any(s in inert and model.inside_element(z) for s, z, _ in held) \
                     and _freed_and_solved(model, solver, options, timing, tee):
+                notes.append(f"the solver's lower bound on {held[0][0]} held the optimum; the bounds of "
+                             f"{', '.join(sorted(inert))} inside elements (species no rate uses) were released")
                 sim, check = _checked(model, tol, timing)
                 continue
             edges = split_elements(model.edges, {model.element_of(z) for _, z, _ in held}, study.reactor.points)
@@ -104,6 +106,8 @@ def verify_and_refine(study: Study, model: ReactorModel, solver, options: dict, 
                 break
             splits += 1
             what = f"the mesh with the elements split where a state bound held the optimum ({len(edges) - 1} elements)"
+            notes.append(f"the solver's lower bound on {held[0][0]} held the optimum at z = {held[0][1]:.4g}; "
+                         f"its element was split ({len(edges) - 1} elements)")
         finer, acceptable = _refined(study, model, sim, edges, solver, options, timing, tee, extend)
         if finer is None:
             notes.append(f"{what} did not converge, even with the recovery options")

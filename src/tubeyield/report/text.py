@@ -116,6 +116,7 @@ def optimum_summary(result) -> str:
                 f"  re-simulated ({c.integrator}): largest outlet-flow difference {c.max_rel_error:.2e} "
                 f"({c.worst_species}), tolerance {c.tolerance:.0e}: {'passed' if c.passed else 'NOT passed'}",
                 f"  mesh {c.elements} elements" + (f" after {c.refinements} refinement(s)" if c.refinements else "")]
+        out += [f"  {n}" for n in c.notes]
     if result.starts.get("n"):
         s = result.starts
         out.append(f"starts: {s['ok']} of {s['n']} converged, {s['reached_best']} reached the best point")
