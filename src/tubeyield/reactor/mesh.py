@@ -96,22 +96,42 @@ def element_errors(edges, nodes_values: np.ndarray, rhs, scales: np.ndarray, poi
     ndarray, shape (n,)
         e_k = h_k max over test points and components of |p'(z) - f(p(z), z)| / scale.
     """
-    tau = np.concatenate([[0.0], radau_roots(points)])
-    test = 0.5 * (tau[:-1] + tau[1:])
+    values_at, slopes_at = _test_point_basis(points)
     edges = np.asarray(edges, dtype=float)
-    from scipy.interpolate import BarycentricInterpolator   # here, not at the top: only refinement needs it
+    h_all = np.diff(edges)
+    values_all = np.einsum("tj,kjm->ktm", values_at, nodes_values)
+    slopes_all = np.einsum("tj,kjm->ktm", slopes_at, nodes_values) / h_all[:, None, None]
+    test = _test_points(points)
     errors = np.zeros(len(edges) - 1)
     for k in range(len(edges) - 1):
-        a, h = edges[k], edges[k + 1] - edges[k]
-        poly = BarycentricInterpolator(tau, nodes_values[k])
-        values = poly(test)
-        slopes = poly.derivative(test) / h
+        a, h = edges[k], h_all[k]
         worst = 0.0
-        for t, y, dy in zip(test, values, slopes):
+        for t, y, dy in zip(test, values_all[k], slopes_all[k]):
             residual = (dy - np.asarray(rhs(a + h * t, y), dtype=float)) / scales
             worst = max(worst, float(np.max(np.abs(residual))))
         errors[k] = h * worst
     return errors
+
+
+def _test_points(points: int) -> np.ndarray:
+    """The midpoints between an element's nodes (its left edge and its Radau points), on [0, 1]."""
+    tau = np.concatenate([[0.0], radau_roots(points)])
+    return 0.5 * (tau[:-1] + tau[1:])
+
+
+def _test_point_basis(points: int) -> tuple[np.ndarray, np.ndarray]:
+    """(L, D): row t of L holds the Lagrange basis of the element's nodes at test point t, row t of D its
+    derivative, so that p(t) = L @ nodes and p'(t) = D @ nodes on [0, 1]. The barycentric weights are given
+    explicitly, w_j = 1 / prod_(k != j) (tau_j - tau_k) (J.-P. Berrut and L. N. Trefethen, "Barycentric Lagrange
+    interpolation", SIAM Review 46 (2004) 501-517, eq. 3.2): scipy computes them otherwise from a random
+    permutation of the nodes, which made the estimate, and so the mesh and every solve after it, differ in the
+    last digits from run to run."""
+    from scipy.interpolate import BarycentricInterpolator   # here, not at the top: only refinement needs it
+    tau = np.concatenate([[0.0], radau_roots(points)])
+    weights = np.array([1.0 / np.prod([tj - tk for k, tk in enumerate(tau) if k != j]) for j, tj in enumerate(tau)])
+    poly = BarycentricInterpolator(tau, np.eye(len(tau)), wi=weights)
+    test = _test_points(points)
+    return np.atleast_2d(poly(test)), np.atleast_2d(poly.derivative(test))
 
 
 def equidistribute(edges, errors, n_new: int, points: int, fixed=(0.0, 1.0)) -> list[float]:
