@@ -192,9 +192,10 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
                 point["note"] = "the x-end's own optimum (the last level could not be solved on the front model)"
         if point is None and i == 0 and y_opt.status == st.OPTIMAL:
             # The first level is the y-end itself. Its cold solve on a rebuilt front model failed in about 1 of 25
-            # runs of a series network near complete conversion (tests/test_sweep_inputs.py; the iterations of this
-            # solve vary from run to run, 19-111, for reasons not found). The y-end's own verified optimum is the
-            # point, and the next level starts cold from it.
+            # runs of a series network near complete conversion (tests/test_sweep_inputs.py), while the mesh's
+            # error estimate still varied in its last digits between runs (reactor/mesh.py; the iterations of this
+            # solve then varied from 19 to 111). A cold solve can fail on other networks, so the y-end's own verified
+            # optimum is the point, and the next level starts cold from it.
             point = _point_from_result(y_opt, spec, y_opt.metrics[spec.x.text]["value"])
             point.update(trade_off=None,
                          note="the y-end's own optimum (the first level could not be solved on the front model)")
