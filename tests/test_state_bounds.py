@@ -136,3 +136,39 @@ def test_sweep_re_solves_held_by_a_state_bound_are_optimized_cold():
     goals = [r["goal"] for r in rows]
     assert all(g > 0.997 for g in goals), goals
     assert len({round(g, 6) for g in goals}) == 3, goals     # each scenario its own optimum, no common wall
+
+
+def test_a_front_whose_x_end_needed_released_bounds_solves_every_level_near_it():
+    # x and y of opposite senses: the x-end (highest conversion under yield:C <= 0.10) is optimized on its own model,
+    # where the verification releases the bounds of C, D, E, W inside elements (the test above). The front's levels
+    # were solved on the y-end's model with the bounds in place: the level at conversion 0.98851 was infeasible
+    # there (the bounds cap it at 0.98598) and failed, and the front ended "partial". The front model now gets the
+    # bounds released when an end's verification released them. Reference: SLSQP on single shooting (scipy alone).
+    from scipy.optimize import minimize
+
+    from tubeyield.jobs.front import front
+    text = demo_text(all_limits=True).replace('"conversion:A >= 0.80"', '"conversion:A >= 0.95"').replace(
+        'y = "selectivity:B"\npoints = 21', 'y = "yield:D"\ny_sense = "min"\npoints = 6')
+    study = study_from_toml(text, "front-opposite-senses")
+    result = front(study)
+    assert result.status == st.DONE, result.message
+    assert result.ends["x_optimum"]["check"]["released"] == ["C", "D", "E", "W"]
+    assert [p["status"] for p in result.points] == [st.OPTIMAL] * 6
+    point = result.points[4]
+    assert 0.9862 < point["x"] < 0.9979                         # inside the range the bounds used to cut off
+
+    pb = from_study(study)
+    shoot = Shooting(pb)
+    d = point["decisions"]
+    x0 = shoot.pack(d["tau"] * 60.0, d["ratio.O"], d["T"])      # minutes in the point's decisions
+    index = {name: pb.species.index(name) for name in ("A", "C", "D")}
+
+    def metric(kind, name, x):
+        return pb.metric(kind, index[name], *shoot.outlet(x))
+
+    cons = [{"type": "ineq", "fun": lambda x: metric("conversion", "A", x) - point["level"]},
+            {"type": "ineq", "fun": lambda x: 0.10 - metric("yield", "C", x)}]
+    best = minimize(lambda x: metric("yield", "D", x), x0, method="SLSQP", bounds=[(0.0, 1.0)] * len(x0),
+                    constraints=cons, options={"ftol": 1e-14, "maxiter": 300, "eps": 1e-8})
+    assert best.success, best.message
+    assert point["y"] == pytest.approx(best.fun, abs=1e-7)

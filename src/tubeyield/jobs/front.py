@@ -162,6 +162,12 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
         y_snapshot = None
     else:
         model.restore(y_snapshot)
+    if any(end.check is not None and end.check.released for end in (y_opt, x_opt)):
+        # An end's verification dropped the bounds of species that feed nothing back inside elements, because one
+        # held that optimum (jobs/refine.py). The levels near that end need the same: on a front whose x-end was
+        # solved on its own model, the levels between 0.986 and 0.998 in conversion on the demo network were
+        # infeasible with the bounds (the x-end held at 0.98598 has them) and failed.
+        model.free_inert_stages()
     timing["build"] = time.perf_counter() - t
 
     # The levels stay inside the attainable range: x_end is itself an optimum found to solver tolerance (on the ends'

@@ -118,6 +118,7 @@ def verify_and_refine(study: Study, model: ReactorModel, solver, options: dict, 
     model, sim, check, hot, held = _hold_temperature_limits(study, model, sim, check, solver, options, timing, tee)
     check.refinements = refinements
     check.notes = notes + check.notes
+    check.released = tuple(model.inert_species()) if model.inert_stages_free else ()
     return Verified(model, check, sim, hot, held, acceptable_only)
 
 

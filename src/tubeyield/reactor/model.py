@@ -106,6 +106,7 @@ class ReactorModel:
     `u_out`, `T_out` (scaled), `T_points` (scaled temperature expressions the limit T applies to)."""
 
     kind = "base"
+    inert_stages_free = False     # free_inert_stages has dropped bounds inside elements (plug flow)
 
     def __init__(self, study: Study, mesh=None, state_scale: dict | None = None):
         self.study = study

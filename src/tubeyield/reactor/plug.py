@@ -52,7 +52,6 @@ TRACE_DIP_SHARE = 1e-9
 
 class PlugModel(ReactorModel):
     kind = "plug"
-    inert_stages_free = False
 
     def state_floors(self) -> dict:
         """Lower bound of each species' scaled state: -TRACE_DIP_SHARE of the total inlet flow for species that

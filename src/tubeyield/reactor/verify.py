@@ -23,6 +23,7 @@ class Check:
     refinements: int = 0
     edges: list | None = None                 # the mesh (element edges on [0, 1]); None for stirred tanks
     notes: list = field(default_factory=list)  # what the refinement tried and could not do
+    released: tuple = ()                      # species whose state bounds inside elements the verification dropped
 
     @property
     def passed(self) -> bool:
@@ -31,7 +32,7 @@ class Check:
     def to_dict(self):
         out = {"max_rel_error": self.max_rel_error, "worst_species": self.worst_species, "tolerance": self.tolerance,
                "passed": self.passed, "elements": self.elements, "integrator": self.integrator,
-               "refinements": self.refinements, "notes": list(self.notes)}
+               "refinements": self.refinements, "notes": list(self.notes), "released": list(self.released)}
         if self.edges is not None:
             lengths = [b - a for a, b in zip(self.edges[:-1], self.edges[1:])]
             out.update(shortest_element=min(lengths), longest_element=max(lengths), edges=list(self.edges))
