@@ -120,22 +120,48 @@ def test_an_optimum_held_by_a_state_bound_is_said():
     assert not [w for w in y_best.warnings if w.startswith(HELD_BY_STATE_BOUND)], y_best.warnings
 
 
-def test_sweep_re_solves_held_by_a_state_bound_are_optimized_cold():
-    # A sweep re-solves each scenario warm on one shared model. On the x-end with E -> F above, the first scenario
-    # is optimized cold and its verification splits the held element, but the shared model keeps its mesh: warm
-    # re-solves on it ended held at 0.985983 for every later scenario, reported optimal. A held re-solve now falls
-    # back to the cold optimization. The scenarios scale every rate constant by a common factor (0.95-1.05).
+def _held_sweep():
+    import tubeyield.jobs.sweep as sweep_job
     from tubeyield.jobs.scenario import scenarios
-    from tubeyield.jobs.sweep import run_scenario
+    sweep_job._local.states = {}          # no shared model left from another test of the same study
     text = demo_text(all_limits=True).replace('maximize = "yield:B"', 'maximize = "conversion:A"') + AGING
     text += ('\n[sweep]\nsamples = 3\nseed = 7\nrun = "optimize"\n'
              'vary = { "reaction.*.k_factor" = { uniform = [0.95, 1.05] } }\n')
     study = study_from_toml(text, "sweep-x-end")
-    rows = [run_scenario(study, s) for s in scenarios(study)]
+    return study, list(scenarios(study))
+
+
+def test_sweep_re_solves_held_by_a_state_bound_are_optimized_cold(monkeypatch):
+    # A sweep re-solves each scenario warm on one shared model. On the x-end with E -> F above, the first scenario
+    # is optimized cold and its verification splits the held element. Had the shared model kept its mesh (forced
+    # here), warm re-solves on it ended held at 0.985983 for every later scenario, reported optimal. A held re-solve
+    # falls back to the cold optimization. The scenarios scale every rate constant by a common factor (0.95-1.05).
+    import tubeyield.jobs.sweep as sweep_job
+    monkeypatch.setattr(sweep_job, "_on_finer_mesh", lambda *args: None)
+    study, cases = _held_sweep()
+    rows = [sweep_job.run_scenario(study, s) for s in cases]
     assert [r["status"] for r in rows] == ["optimal"] * 3, rows
+    assert [r["start"] for r in rows] == ["cold"] * 3
     goals = [r["goal"] for r in rows]
     assert all(g > 0.997 for g in goals), goals
     assert len({round(g, 6) for g in goals}) == 3, goals     # each scenario its own optimum, no common wall
+
+
+def test_a_sweep_moves_its_shared_model_to_the_mesh_a_scenario_needed():
+    # The same sweep as it runs: after the first scenario's split the shared model takes the 41-element mesh, and
+    # the later scenarios are warm re-solves on it (each cold before: about 1 s against 0.05 s), equal to cold
+    # optimizations of the same scenarios.
+    from tubeyield.jobs.sweep import run_scenario
+    from tubeyield.study.variation import apply_values
+    study, cases = _held_sweep()
+    rows = [run_scenario(study, s) for s in cases]
+    assert [r["status"] for r in rows] == ["optimal"] * 3, rows
+    assert [r["start"] for r in rows] == ["cold", "warm", "warm"]
+    assert all(r["detail"]["check"]["elements"] == 41 for r in rows)
+    for r, s in zip(rows[1:], cases[1:]):
+        cold = optimize(apply_values(study, s.as_dict()))
+        assert cold.status == st.OPTIMAL
+        assert r["goal"] == pytest.approx(cold.goal["value"], abs=1e-7)
 
 
 def test_a_front_whose_x_end_needed_released_bounds_solves_every_level_near_it():

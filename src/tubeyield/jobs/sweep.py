@@ -135,8 +135,39 @@ def _optimize(base: Study, sc: Study, scenario: Scenario) -> dict:
                 return row
     result = optimize(sc, solver=solver, model=model)
     if result.status == "optimal":
-        _remember(state, vec, model)
+        if model.edges is not None and result.check is not None and result.check.edges is not None \
+                and list(result.check.edges) != list(model.edges):
+            # The verification needed a finer mesh than the shared model's (the check, or a state bound holding the
+            # optimum): warm re-solves on the coarse model would need it again for every later scenario, each then
+            # optimized cold. The shared model moves to that mesh.
+            model = _on_finer_mesh(state, base, sc, result, solver, options)
+        if model is not None:
+            _remember(state, vec, model)
     return _row_from_result(result, start="cold")
+
+
+def _on_finer_mesh(state: _WorkerState, base: Study, sc: Study, result, solver, options: dict):
+    """The shared model rebuilt on the mesh a scenario's verification ended on and solved at that scenario's
+    optimum, so that later scenarios start warm from it (the worker's remembered solutions belong to the old model
+    and are dropped). None, the old model kept, when the rebuilt model does not reach a verified, unheld optimum."""
+    from tubeyield.jobs.problem import prepare
+    from tubeyield.reactor.simulate import simulate
+    from tubeyield.reactor.verify import compare, reference
+    from tubeyield.solve import OK_CONDITIONS
+    from tubeyield.solve.options import REFINE_OPTIONS
+    finer = prepare(base, result.check.edges)
+    if result.check.released:
+        finer.free_inert_stages()
+    finer.set_parameters(sc)
+    finer.set_decisions(result.decisions_si)
+    finer.initialize(simulate(sc, finer.decision_values(), T_profile=finer.temperature_function()))
+    res = solver.solve(finer.m, options={**REFINE_OPTIONS, **options})
+    if res.solver.termination_condition not in OK_CONDITIONS or finer.state_bound_holds() \
+            or not compare(finer, reference(finer), sc.numerics.check_tolerance).passed:
+        return None
+    state.model = finer
+    state.memory.clear()
+    return finer
 
 
 def _remember(state: _WorkerState, vec, model) -> None:
