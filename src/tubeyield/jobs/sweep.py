@@ -110,8 +110,6 @@ def _check_scenario(sc: Study) -> None:
 
 def _optimize(base: Study, sc: Study, scenario: Scenario) -> dict:
     from tubeyield.jobs.optimize import optimize
-    from tubeyield.reactor.verify import compare, reference
-    from tubeyield.solve import OK_CONDITIONS
 
     state = _state(base)
     model, solver = state.model, state.solver
@@ -122,17 +120,12 @@ def _optimize(base: Study, sc: Study, scenario: Scenario) -> dict:
         model.set_parameters(sc)
         model.restore(near[1])
         res = solver.solve(model.m, options=options, reuse_structure=True, warmstart=True)
-        # A warm re-solve is kept when it converged, passes the check and no state bound holds it; otherwise the
-        # scenario is optimized cold, where the verification deals with a held bound (jobs/refine.py). Measured on
-        # the demo's highest conversion with a dimer that feeds a reaction: warm re-solves on the shared model ended
-        # held at 0.98598 where the scenarios' optima are 0.9978-0.9983.
-        if res.solver.termination_condition in OK_CONDITIONS and not model.state_bound_holds():
-            check = compare(model, reference(model), sc.numerics.check_tolerance)
-            if check.passed:
-                row = _row_from_model(sc, model, check, solver.last_stats.get("iterations"))
-                row["start"] = "warm"
-                _remember(state, vec, model)
-                return row
+        check = _kept(model, sc, res)
+        if check is not None:
+            row = _row_from_model(sc, model, check, solver.last_stats.get("iterations"))
+            row["start"] = "warm"
+            _remember(state, vec, model)
+            return row
     result = optimize(sc, solver=solver, model=model)
     if result.status == "optimal":
         if model.edges is not None and result.check is not None and result.check.edges is not None \
@@ -152,8 +145,6 @@ def _on_finer_mesh(state: _WorkerState, base: Study, sc: Study, result, solver, 
     and are dropped). None, the old model kept, when the rebuilt model does not reach a verified, unheld optimum."""
     from tubeyield.jobs.problem import prepare
     from tubeyield.reactor.simulate import simulate
-    from tubeyield.reactor.verify import compare, reference
-    from tubeyield.solve import OK_CONDITIONS
     from tubeyield.solve.options import REFINE_OPTIONS
     finer = prepare(base, result.check.edges)
     if result.check.released:
@@ -162,12 +153,25 @@ def _on_finer_mesh(state: _WorkerState, base: Study, sc: Study, result, solver, 
     finer.set_decisions(result.decisions_si)
     finer.initialize(simulate(sc, finer.decision_values(), T_profile=finer.temperature_function()))
     res = solver.solve(finer.m, options={**REFINE_OPTIONS, **options})
-    if res.solver.termination_condition not in OK_CONDITIONS or finer.state_bound_holds() \
-            or not compare(finer, reference(finer), sc.numerics.check_tolerance).passed:
+    if _kept(finer, sc, res) is None:
         return None
     state.model = finer
     state.memory.clear()
     return finer
+
+
+def _kept(model, sc: Study, res):
+    """The check of a solve on the shared model that the sweep keeps without a cold optimization, or None: kept
+    when it converged, no state bound holds it and the re-simulation passes. A held solve is optimized cold, where
+    the verification deals with the bound (jobs/refine.py): measured on the demo's highest conversion with a dimer
+    that feeds a reaction, warm re-solves on a coarse shared model ended held at 0.98598 where the scenarios' optima
+    are 0.9978-0.9983."""
+    from tubeyield.reactor.verify import compare, reference
+    from tubeyield.solve import OK_CONDITIONS
+    if res.solver.termination_condition not in OK_CONDITIONS or model.state_bound_holds():
+        return None
+    check = compare(model, reference(model), sc.numerics.check_tolerance)
+    return check if check.passed else None
 
 
 def _remember(state: _WorkerState, vec, model) -> None:
