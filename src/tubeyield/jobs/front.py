@@ -194,17 +194,14 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
                 if point is not None:
                     break
             if point is None and x_opt.status == st.OPTIMAL:
-                point = _point_from_result(x_opt, spec, x_opt.metrics[spec.x.text]["value"])
-                point["note"] = "the x-end's own optimum (the last level could not be solved on the front model)"
+                point = _end_point(x_opt, spec, "x-end", "last")
         if point is None and i == 0 and y_opt.status == st.OPTIMAL:
             # The first level is the y-end itself. Its cold solve on a rebuilt front model failed in about 1 of 25
             # runs of a series network near complete conversion (tests/test_sweep_inputs.py), while the mesh's
             # error estimate still varied in its last digits between runs (reactor/mesh.py; the iterations of this
             # solve then varied from 19 to 111). A cold solve can fail on other networks, so the y-end's own verified
             # optimum is the point, and the next level starts cold from it.
-            point = _point_from_result(y_opt, spec, y_opt.metrics[spec.x.text]["value"])
-            point.update(trade_off=None,
-                         note="the y-end's own optimum (the first level could not be solved on the front model)")
+            point = _end_point(y_opt, spec, "y-end", "first")
             _start_from(model, study, y_opt.decisions_si)
             result.points.append(point)
             earlier, previous = None, None
@@ -353,6 +350,15 @@ def _point(model, study: Study, spec, level: float, solver) -> dict:
 
 def _display_factor(metric: Metric) -> float:
     return metric_display(metric, 1.0)[0]
+
+
+def _end_point(end: Result, spec, name: str, which: str) -> dict:
+    """An end's own verified optimum as the front's first or last point, when that level could not be solved on
+    the front model; no slope (the level's multiplier is not there)."""
+    point = _point_from_result(end, spec, end.metrics[spec.x.text]["value"])
+    point.update(trade_off=None,
+                 note=f"the {name}'s own optimum (the {which} level could not be solved on the front model)")
+    return point
 
 
 def _point_from_result(r: Result, spec, level: float) -> dict:

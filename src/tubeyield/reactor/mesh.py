@@ -96,12 +96,11 @@ def element_errors(edges, nodes_values: np.ndarray, rhs, scales: np.ndarray, poi
     ndarray, shape (n,)
         e_k = h_k max over test points and components of |p'(z) - f(p(z), z)| / scale.
     """
-    values_at, slopes_at = _test_point_basis(points)
+    test, values_at, slopes_at = _test_point_basis(points)
     edges = np.asarray(edges, dtype=float)
     h_all = np.diff(edges)
     values_all = np.einsum("tj,kjm->ktm", values_at, nodes_values)
     slopes_all = np.einsum("tj,kjm->ktm", slopes_at, nodes_values) / h_all[:, None, None]
-    test = _test_points(points)
     errors = np.zeros(len(edges) - 1)
     for k in range(len(edges) - 1):
         a, h = edges[k], h_all[k]
@@ -113,15 +112,10 @@ def element_errors(edges, nodes_values: np.ndarray, rhs, scales: np.ndarray, poi
     return errors
 
 
-def _test_points(points: int) -> np.ndarray:
-    """The midpoints between an element's nodes (its left edge and its Radau points), on [0, 1]."""
-    tau = np.concatenate([[0.0], radau_roots(points)])
-    return 0.5 * (tau[:-1] + tau[1:])
-
-
-def _test_point_basis(points: int) -> tuple[np.ndarray, np.ndarray]:
-    """(L, D): row t of L holds the Lagrange basis of the element's nodes at test point t, row t of D its
-    derivative, so that p(t) = L @ nodes and p'(t) = D @ nodes on [0, 1]. The barycentric weights are given
+def _test_point_basis(points: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(test points, L, D): the midpoints between an element's nodes (its left edge and its Radau points) on
+    [0, 1]; row t of L holds the Lagrange basis of the nodes at test point t, row t of D its derivative, so that
+    p(t) = L @ nodes and p'(t) = D @ nodes. The barycentric weights are given
     explicitly, w_j = 1 / prod_(k != j) (tau_j - tau_k) (J.-P. Berrut and L. N. Trefethen, "Barycentric Lagrange
     interpolation", SIAM Review 46 (2004) 501-517, eq. 3.2): scipy computes them otherwise from a random
     permutation of the nodes, which made the estimate, and so the mesh and every solve after it, differ in the
@@ -130,8 +124,8 @@ def _test_point_basis(points: int) -> tuple[np.ndarray, np.ndarray]:
     tau = np.concatenate([[0.0], radau_roots(points)])
     weights = np.array([1.0 / np.prod([tj - tk for k, tk in enumerate(tau) if k != j]) for j, tj in enumerate(tau)])
     poly = BarycentricInterpolator(tau, np.eye(len(tau)), wi=weights)
-    test = _test_points(points)
-    return np.atleast_2d(poly(test)), np.atleast_2d(poly.derivative(test))
+    test = 0.5 * (tau[:-1] + tau[1:])
+    return test, np.atleast_2d(poly(test)), np.atleast_2d(poly.derivative(test))
 
 
 def equidistribute(edges, errors, n_new: int, points: int, fixed=(0.0, 1.0)) -> list[float]:
