@@ -104,6 +104,26 @@ def test_front_knee_is_the_farthest_point_from_the_chord(demo_front):
     assert k == int(np.argmax(xr + yr))
 
 
+def test_a_straight_front_has_no_knee():
+    # The knee is the point farthest outside the chord between the ends (I. Das, Structural Optimization 18, 1999).
+    # On a straight front every point lies on the chord, and a bulge under 1 % of the box's diagonal is no knee; a
+    # quarter circle (both metrics maximized) has its knee at 45 degrees, 0.29 of the diagonal outside the chord.
+    from tubeyield.jobs.front import _knee
+
+    def pts(x, y):
+        return [{"status": "optimal", "x": float(a), "y": float(b), "dominated": False} for a, b in zip(x, y)]
+
+    x = np.linspace(0.2, 0.9, 11)
+    assert _knee(pts(x, 1.5 - 0.8 * x), "max", "max") is None
+    bulge = 0.005 * 0.56 * np.sin(np.pi * (x - 0.2) / 0.7)       # 0.5 % of the y range (0.56) at the middle
+    assert _knee(pts(x, 1.5 - 0.8 * x + bulge), "max", "max") is None
+    assert _knee(pts(x, 1.5 - 0.8 * x + 10 * bulge), "max", "max") == 5
+    t = np.linspace(0.0, np.pi / 2, 11)
+    assert _knee(pts(np.sin(t), np.cos(t)), "max", "max") == 5
+    # x maximized, y minimized: the quarter circle mirrored, its knee again in the middle
+    assert _knee(pts(np.sin(t), 2.0 - np.cos(t)), "max", "min") == 5
+
+
 def test_dominated_points_are_marked():
     from tubeyield.jobs.front import _mark_dominated
     pts = [{"status": "optimal", "x": 1.0, "y": 3.0, "dominated": False},

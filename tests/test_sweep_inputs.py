@@ -146,19 +146,20 @@ def test_a_catalyst_factor_scales_the_rate_constants_a_scenario_sets_whatever_th
         assert applied.reaction("r2").k.ln_k_ref == pytest.approx(study.reaction("r2").k.ln_k_ref + math.log(0.5))
 
 
-def test_a_front_whose_first_level_fails_starts_from_the_y_end(monkeypatch):
-    """The first level is the y-end itself; when its solve on the front model fails (it did in about 1 of 25 runs of
-    the study above), the y-end's own verified optimum is the point and the front goes on from it."""
+def test_a_front_starts_at_the_y_ends_own_optimum_without_solving_it_again(monkeypatch):
+    """The first level is the y-end itself: the y-end's own verified optimum is the first point and no level is
+    solved there (a cold solve of that level failed in about 1 of 25 runs of the study above). No limit on x binds
+    at the y-end, so the slope there is one-sided and not reported; the others come from their own levels."""
     import tubeyield.jobs.front as front_job
     study = study_from_toml(SERIES.replace("[numerics]", FRONT).replace('k = "0.005 1/s"', 'k = "0.002 1/s"'))
     solved = front_job._level_point
-    calls = []
+    levels = []
 
-    def first_fails(model, st, spec, level, *args):
-        calls.append(level)
-        return None if len(calls) == 1 else solved(model, st, spec, level, *args)
+    def recorded(model, st, spec, level, *args, **kwargs):
+        levels.append(level)
+        return solved(model, st, spec, level, *args, **kwargs)
 
-    monkeypatch.setattr(front_job, "_level_point", first_fails)
+    monkeypatch.setattr(front_job, "_level_point", recorded)
     f = front_job.front(study)
     assert f.status == "done", f.message
     first = f.points[0]
@@ -166,4 +167,6 @@ def test_a_front_whose_first_level_fails_starts_from_the_y_end(monkeypatch):
     assert "y-end's own optimum" in first["note"] and first["trade_off"] is None
     assert first["y"] == y_end["metrics"]["selectivity:B"]["value"]
     assert first["x"] == y_end["metrics"]["conversion:A"]["value"]
+    assert len(levels) == len(f.points) - 1 and min(levels) > first["x"] + 1e-3
     assert all(p["status"] == "optimal" for p in f.points)
+    assert all(p["trade_off"] is not None and p["trade_off"] < 0 for p in f.points[1:-1])

@@ -176,11 +176,20 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
     levels = np.linspace(x_start, x_end, n)
     levels[-1] = x_end - sign * END_INSET * max(abs(x_end - x_start), 1e-300)
     t = time.perf_counter()
-    previous, earlier = None, None
-    for i, level in enumerate(levels):
+    # The first level is the y-end itself: its own verified optimum is the first point, not solved again. A cold
+    # solve there took 21-22 Ipopt iterations on the demo fronts, and failed in about 1 of 25 runs of a series
+    # network near complete conversion while the mesh estimate still varied between runs. The second level starts
+    # cold from the y-end's primal point: a warm start from the y-end's primal-dual pair took 19 and 47 iterations
+    # on two demo fronts, against 13 and 21 for the first two levels before (the level constraint, slack at the
+    # y-end, must take up its multiplier from zero).
+    model.set_level(LEVEL, float(levels[0]))
+    result.points.append(_first_point(y_opt, model if y_snapshot is not None else None, spec))
+    previous, earlier = y_snapshot, None
+    for i in range(1, len(levels)):
+        level = levels[i]
         if previous is not None and earlier is not None:
             _predict(previous, earlier)
-        point = _level_point(model, study, spec, float(level), solver, options, previous)
+        point = _level_point(model, study, spec, float(level), solver, options, previous, warm=i > 1)
         if point is not None and point["status"] == st.UNVERIFIED:
             # this level needs a finer mesh than the front model's: refine for it alone (the front goes on
             # on its own model)
@@ -195,17 +204,6 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
                     break
             if point is None and x_opt.status == st.OPTIMAL:
                 point = _end_point(x_opt, spec, "x-end", "last")
-        if point is None and i == 0 and y_opt.status == st.OPTIMAL:
-            # The first level is the y-end itself. Its cold solve on a rebuilt front model failed in about 1 of 25
-            # runs of a series network near complete conversion (tests/test_sweep_inputs.py), while the mesh's
-            # error estimate still varied in its last digits between runs (reactor/mesh.py; the iterations of this
-            # solve then varied from 19 to 111). A cold solve can fail on other networks, so the y-end's own verified
-            # optimum is the point, and the next level starts cold from it.
-            point = _end_point(y_opt, spec, "y-end", "first")
-            _start_from(model, study, y_opt.decisions_si)
-            result.points.append(point)
-            earlier, previous = None, None
-            continue
         if point is not None:
             earlier, previous = (previous if point["status"] == st.OPTIMAL else None), model.snapshot()
             result.points.append(point)
@@ -260,14 +258,12 @@ def _finest_mesh(model, *ends):
     return None if len(finest) == len(model.edges) and np.allclose(finest, model.edges) else finest
 
 
-def _level_point(model, study: Study, spec, level: float, solver, options, previous) -> dict | None:
-    """The front point at one level: warm from the previous point, or from its neighbour again cold; None if both
-    fail."""
+def _level_point(model, study: Study, spec, level: float, solver, options, previous, warm: bool = True) \
+        -> dict | None:
+    """The front point at one level: from the previous point (warm unless told otherwise), or from its neighbour
+    again cold; None if both fail."""
     model.set_level(LEVEL, level)
-    # The first level starts cold from the y-end's primal point: there the level constraint was slack by about 1e6,
-    # and a warm start through that jump stopped 3e-6 short of the optimum (measured against a cold solve and the
-    # casadi baseline). Neighbouring levels are warm-started.
-    res = solver.solve(model.m, options=options, reuse_structure=True, warmstart=previous is not None)
+    res = solver.solve(model.m, options=options, reuse_structure=True, warmstart=warm and previous is not None)
     ok = res.solver.termination_condition in OK_CONDITIONS
     if not ok and previous is not None:
         model.restore(previous)
@@ -324,21 +320,7 @@ def _point(model, study: Study, spec, level: float, solver) -> dict:
         metrics[met.text] = metric_display(met, model.metric_value(met))[0]
     x = metric_display(spec.x, model.metric_value(spec.x))[0]
     y = metric_display(spec.y, model.metric_value(spec.y))[0]
-    # The local slope of the front, dy/dx: the sensitivity of the optimal objective to the level, which is a pinned
-    # variable (a casadi parameter, its multiplier loaded as its reduced cost). Unlike the constraint's dual, it does
-    # not depend on how the writer orients `x >= level`. Scaled objective per scaled level -> display units.
-    # A study limit on the same metric in the same direction at this level (the first level often sits on it) is the
-    # same constraint twice: Ipopt splits the multiplier between the two, and moving the level past the limit frees
-    # neither, so the slope is their sum.
-    level_var, x_scale = model.levels[LEVEL]
-    sensitivity = (model.m.rc.get(level_var, 0.0) or 0.0) / x_scale
-    sense = ">=" if spec.x_sense == "max" else "<="
-    for lh in model.limits:
-        lim = lh.limit
-        if lim.metric == spec.x and lim.sense == sense and abs(lim.bound - level) <= 1e-6 * max(1.0, abs(level)):
-            sensitivity += limit_sensitivity(model, lh) / lh.scale
-    dy_dx = sensitivity * model.goal_scale
-    dy_dx *= _display_factor(spec.y) / _display_factor(spec.x)
+    dy_dx, _ = _slope(model, spec, level)
     active = [r.text for r in limit_reports(model) if r.active]
     active += [f"{b.decision} at {b.side} bound" for b in bound_reports(model) if b.side in ("low", "high")]
     check = compare(model, reference(model), study.numerics.check_tolerance)
@@ -346,6 +328,45 @@ def _point(model, study: Study, spec, level: float, solver) -> dict:
             "x": x, "y": y, "trade_off": dy_dx, "decisions": decisions_to_user(study, values), "metrics": metrics,
             "active": active, "check": check.max_rel_error, "dominated": False,
             "iterations": solver.last_stats.get("iterations")}
+
+
+def _slope(model, spec, level: float) -> tuple[float, bool]:
+    """The local slope of the front, dy/dx in display units, at the solution the model holds, and whether a study
+    limit on x sits at `level` (its multiplier is part of the slope)."""
+    # The sensitivity of the optimal objective to the level, which is a pinned variable (a casadi parameter, its
+    # multiplier loaded as its reduced cost). Unlike the constraint's dual, it does not depend on how the writer
+    # orients `x >= level`. Scaled objective per scaled level -> display units.
+    # A study limit on the same metric in the same direction at this level (the y-end often sits on it) is the same
+    # constraint twice: Ipopt splits the multiplier between the two, and moving the level past the limit frees
+    # neither, so the slope is their sum.
+    level_var, x_scale = model.levels[LEVEL]
+    sensitivity = (model.m.rc.get(level_var, 0.0) or 0.0) / x_scale
+    sense = ">=" if spec.x_sense == "max" else "<="
+    on_limit = False
+    for lh in model.limits:
+        lim = lh.limit
+        if lim.metric == spec.x and lim.sense == sense and abs(lim.bound - level) <= 1e-6 * max(1.0, abs(level)):
+            sensitivity += limit_sensitivity(model, lh) / lh.scale
+            on_limit = True
+    dy_dx = sensitivity * model.goal_scale
+    dy_dx *= _display_factor(spec.y) / _display_factor(spec.x)
+    return dy_dx, on_limit
+
+
+def _first_point(y_opt: Result, model, spec) -> dict:
+    """The y-end's own verified optimum as the front's first point. Its slope is one-sided: when a study limit on x
+    binds there, its multiplier is the slope (read from `model`, holding the y-end's solution, when given); when
+    none does, the y-end's multipliers do not give it (the level constraint is only weakly active there, and where
+    the y-end sits on decision bounds the measured values were 0.0064 against 0.0134 between the first two points),
+    and no slope is reported."""
+    point = _point_from_result(y_opt, spec, y_opt.metrics[spec.x.text]["value"])
+    point["trade_off"] = None
+    point["note"] = "the y-end's own optimum"
+    if model is not None:
+        dy_dx, on_limit = _slope(model, spec, model.levels[LEVEL][0].value * model.levels[LEVEL][1])
+        if on_limit:
+            point["trade_off"] = dy_dx
+    return point
 
 
 def _display_factor(metric: Metric) -> float:
@@ -386,8 +407,17 @@ def _mark_dominated(points: list, xs: str, ys: str, tol: float = 1e-9) -> None:
                 break
 
 
+# The least outward bulge, as a share of the diagonal of the front's box, for a point to be called its knee: a
+# front within 1 % of its chord is practically straight, and the farthest point from the chord is then noise (on a
+# straight front of opposite senses the "knee" fell on an end).
+KNEE_MIN_BULGE = 0.01
+
+
 def _knee(points: list, xs: str, ys: str) -> int | None:
-    """Index of the non-dominated point farthest from the chord between the ends, in coordinates scaled to [0, 1]."""
+    """Index of the non-dominated point farthest from the chord between the ends, in coordinates scaled to [0, 1]
+    (the knee of a front in the sense of I. Das, "On characterizing the 'knee' of the Pareto curve based on
+    normal-boundary intersection", Structural Optimization 18, 1999); None when no point bulges outwards by
+    KNEE_MIN_BULGE."""
     idx = [i for i, p in enumerate(points) if p["status"] in st.SOLVED and not p["dominated"]]
     if len(idx) < 3:
         return idx[0] if idx else None
@@ -397,4 +427,5 @@ def _knee(points: list, xs: str, ys: str) -> int | None:
     yr = (y - y[-1]) / (y[0] - y[-1]) if y[0] != y[-1] else np.zeros_like(y)
     # chord from (0, 1) to (1, 0): distance |x + y - 1| / sqrt(2); the knee bulges outwards (x + y > 1)
     d = (xr + yr - 1.0) / np.sqrt(2.0)
-    return idx[int(np.argmax(d))]
+    k = int(np.argmax(d))
+    return idx[k] if d[k] > KNEE_MIN_BULGE * np.sqrt(2.0) else None
