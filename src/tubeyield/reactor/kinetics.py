@@ -37,6 +37,8 @@ class Kinetics:
 
     def production_array(self, rates: list) -> np.ndarray:
         """N r for numeric rates (scalars or arrays of equal length): rows follow `symbols`."""
+        if all(isinstance(r, float) for r in rates):
+            return self.matrix @ np.array(rates)
         return self.matrix @ np.array(np.broadcast_arrays(*rates), dtype=float)
 
     def heat_release(self, rates: list, T) -> object:

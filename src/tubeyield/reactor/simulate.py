@@ -14,6 +14,8 @@ Shares with the optimization model the rate-law code and the balance formulas (b
 from __future__ import annotations
 
 import bisect
+import math
+import types
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -33,6 +35,9 @@ __all__ = ["PiecewiseConstant", "PiecewiseLinear", "Simulation", "SimulationFail
 RTOL = 1e-10
 ATOL = 1e-14
 METHODS = ("LSODA", "Radau", "BDF")
+# The math namespace of the rate laws (they use `exp` only) on Python floats. math.exp raises OverflowError where
+# numpy's gives inf: an ArithmeticError, which simulate() reports as a point that cannot be simulated.
+SCALAR_MATH = types.SimpleNamespace(exp=math.exp)
 
 
 @dataclass(frozen=True)
@@ -266,8 +271,13 @@ def _plug(sim: Simulation, kin: Kinetics, T_fun, T_in, method: str, rtol: float)
         def rhs(z, y):
             u = np.maximum(y[:n], 0.0)
             T = y[n] if energy else (T_of(z) if callable(T_of) else T_of)
+            scalar = y.ndim == 1
+            if scalar:
+                # One state (LSODA's calls, BDF's steps): the rate laws run on Python floats, several times faster
+                # than on numpy scalars.
+                u, T = u.tolist(), float(T)
             conc = concentrations(st, dict(zip(symbols, u)), T, sim.c_s, sim.par)
-            rates = kin.rates(conc, T, np)
+            rates = kin.rates(conc, T, SCALAR_MATH if scalar else np)
             du = factor * kin.production_array(rates)
             if not energy:
                 return du

@@ -5,6 +5,7 @@ Built only by `study.load`; read by everything else. Nothing here knows about un
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field, replace
 
 from tubeyield.study.kinetics import Arrhenius, concentration_product
@@ -316,8 +317,10 @@ class Study:
     includes: tuple[SourceFile, ...] = ()        # included network files, as the study names them
     section_errors: tuple = field(default=(), compare=False, repr=False)  # (section, StudyError) not read
 
-    @property
+    @functools.cached_property
     def symbols(self) -> tuple[str, ...]:
+        """The species' symbols in order (kept once worked out: the simulation's right-hand side asks for them on
+        every call)."""
         return tuple(s.symbol for s in self.species)
 
     def sources_json(self) -> str:
