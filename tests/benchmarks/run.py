@@ -581,8 +581,9 @@ def _explain(by) -> list:
         st = d["stages"]
         out.append(f"- Front: {fmt(d['front_over_optimize'])}x the same study's default optimization, "
                    f"{fmt(d['front_over_single'])}x one single-start optimization of case a. The two single-metric "
-                   f"ends, each a multistart optimization with its own check, take {fmt(st.get('ends'))} s; the 21 "
-                   f"warm-started levels take {fmt(st.get('points'))} s (each also re-simulated). Against a "
+                   f"ends, each a multistart optimization with its own check, take {fmt(st.get('ends'))} s; the y-end's "
+                   f"optimum is the first point, and the other 20 levels, solved by continuation from it, take "
+                   f"{fmt(st.get('points'))} s (each also re-simulated). Against a "
                    "single start the ends alone are two default optimizations, so 3x a single start would need "
                    "single-start ends, giving up the search for the ends' global optima.")
     return out or ["- none"]

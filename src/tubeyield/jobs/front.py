@@ -32,6 +32,7 @@ from tubeyield.jobs.optimize import HELD_BY_STATE_BOUND, SAME_OPTIMUM, optimize
 from tubeyield.jobs.problem import goal_scale, prepare
 from tubeyield.jobs.refine import verify_and_refine
 from tubeyield.jobs.result import Result, finite_json
+from tubeyield.reactor import frozen_heap
 from tubeyield.reactor.metrics import all_metrics, metric_display
 from tubeyield.reactor.verify import compare, reference
 from tubeyield.solve import OK_CONDITIONS, make_solver
@@ -185,36 +186,37 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
     model.set_level(LEVEL, float(levels[0]))
     result.points.append(_first_point(y_opt, model if y_snapshot is not None else None, spec))
     previous, earlier = y_snapshot, None
-    for i in range(1, len(levels)):
-        level = levels[i]
-        if previous is not None and earlier is not None:
-            _predict(previous, earlier)
-        point = _level_point(model, study, spec, float(level), solver, options, previous, warm=i > 1)
-        if point is not None and point["status"] == st.UNVERIFIED:
-            # this level needs a finer mesh than the front model's: refine for it alone (the front goes on
-            # on its own model)
-            previous = model.snapshot()
-            point = _refined_point(model, fstudy, study, spec, float(level), solver, options, timing) or point
-            model.restore(previous)
-        if point is None and i == len(levels) - 1:
-            for inset in (1e-4, 1e-2):
-                inner = x_end - sign * inset * abs(x_end - x_start)
-                point = _level_point(model, study, spec, float(inner), solver, options, previous)
-                if point is not None:
-                    break
-            if point is None and x_opt.status == st.OPTIMAL:
-                point = _end_point(x_opt, spec, "x-end", "last")
-        if point is not None:
-            earlier, previous = (previous if point["status"] == st.OPTIMAL else None), model.snapshot()
-            result.points.append(point)
-        else:
-            earlier = None
-            result.points.append({"level": metric_display(spec.x, float(level))[0], "status": st.FAILED, "x": None,
-                                  "y": None, "trade_off": None, "decisions": {}, "metrics": {}, "active": [],
-                                  "check": None, "dominated": False,
-                                  "iterations": solver.last_stats.get("iterations")})
-            if previous is not None:
+    with frozen_heap():             # the ends' models and solvers live on: out of the collector's scans
+        for i in range(1, len(levels)):
+            level = levels[i]
+            if previous is not None and earlier is not None:
+                _predict(previous, earlier)
+            point = _level_point(model, study, spec, float(level), solver, options, previous, warm=i > 1)
+            if point is not None and point["status"] == st.UNVERIFIED:
+                # this level needs a finer mesh than the front model's: refine for it alone (the front goes on
+                # on its own model)
+                previous = model.snapshot()
+                point = _refined_point(model, fstudy, study, spec, float(level), solver, options, timing) or point
                 model.restore(previous)
+            if point is None and i == len(levels) - 1:
+                for inset in (1e-4, 1e-2):
+                    inner = x_end - sign * inset * abs(x_end - x_start)
+                    point = _level_point(model, study, spec, float(inner), solver, options, previous)
+                    if point is not None:
+                        break
+                if point is None and x_opt.status == st.OPTIMAL:
+                    point = _end_point(x_opt, spec, "x-end", "last")
+            if point is not None:
+                earlier, previous = (previous if point["status"] == st.OPTIMAL else None), model.snapshot()
+                result.points.append(point)
+            else:
+                earlier = None
+                result.points.append({"level": metric_display(spec.x, float(level))[0], "status": st.FAILED, "x": None,
+                                      "y": None, "trade_off": None, "decisions": {}, "metrics": {}, "active": [],
+                                      "check": None, "dominated": False,
+                                      "iterations": solver.last_stats.get("iterations")})
+                if previous is not None:
+                    model.restore(previous)
     timing["points"] = time.perf_counter() - t
     if result.points and result.points[-1]["status"] == st.OPTIMAL:
         # At the x-end the feasible set shrinks to a point: the front ends steeply and the multipliers there are
