@@ -160,3 +160,25 @@ maximize = "conversion:A"
         # after 60 time constants the outlet sits at equilibrium: X = K / (1 + K)
         assert ev.metrics["conversion:A"]["value"] == pytest.approx(K / (1 + K), rel=1e-9)
     assert np.isfinite(K)
+
+
+def test_the_simulation_gives_one_state_and_a_batch_of_states_the_same_rates():
+    # The reference simulation evaluates the rate laws on Python floats for one state (LSODA's calls) and on numpy
+    # arrays for several (BDF's Jacobian); both must give the same right-hand side to round-off (common practice:
+    # the reference must not depend on which integrator asked; a product of a matrix with one column and with two
+    # may sum in another order, so the last bit may differ).
+    from helpers import SCENARIOS
+    from tubeyield.reactor.simulate import simulate
+    from tubeyield.study import load_study
+
+    for study, decisions in ((study_from_toml(LH), {"tau": 30.0, "T": 405.0}),
+                             (load_study(SCENARIOS / "oxidation.toml"), {"tau": 600.0, "T": 360.0, "ratio.O": 1.5})):
+        sim = simulate(study, {d.name: decisions.get(d.name, d.low) for d in study.decisions})
+        n = len(study.symbols)
+        rng = np.random.default_rng(3)
+        for z in (0.0, 0.37, 1.0):
+            y = np.abs(sim.segments[0][2].sol(z)) * rng.uniform(0.5, 1.5, n)     # a state near the reactor's
+            one = sim.rhs(z, y)
+            batch = sim.rhs(z, np.column_stack([y, 0.5 * y]))
+            np.testing.assert_allclose(one, batch[:, 0], rtol=1e-14, atol=1e-300, err_msg=f"{study.name} {z}")
+            assert not np.array_equal(batch[:, 0], batch[:, 1])

@@ -14,7 +14,7 @@ Shares with the optimization model the rate-law code and the balance formulas (b
 from __future__ import annotations
 
 import bisect
-import math
+import functools
 import types
 from dataclasses import dataclass, field
 
@@ -35,9 +35,11 @@ __all__ = ["PiecewiseConstant", "PiecewiseLinear", "Simulation", "SimulationFail
 RTOL = 1e-10
 ATOL = 1e-14
 METHODS = ("LSODA", "Radau", "BDF")
-# The math namespace of the rate laws (they use `exp` only) on Python floats. math.exp raises OverflowError where
-# numpy's gives inf: an ArithmeticError, which simulate() reports as a point that cannot be simulated.
-SCALAR_MATH = types.SimpleNamespace(exp=math.exp)
+# The math namespace of the rate laws (they use `exp` only) on Python floats. Its exp is numpy's, returned as a
+# Python float: math.exp differs from numpy's in the last bit for some arguments, and that was enough to send one
+# start of the demo's free temperature profile along another path (241 Ipopt iterations against 75). Its values are
+# kept for the arguments last seen: at a constant temperature the rate constants' arguments repeat on every call.
+SCALAR_MATH = types.SimpleNamespace(exp=functools.lru_cache(maxsize=1024)(lambda x: float(np.exp(x))))
 
 
 @dataclass(frozen=True)
