@@ -118,6 +118,13 @@ def test_an_optimum_held_by_a_state_bound_is_said():
     # The demo's own goal is not held.
     y_best = optimize(study)
     assert not [w for w in y_best.warnings if w.startswith(HELD_BY_STATE_BOUND)], y_best.warnings
+    # A front to that end: its last level is held there as well, and said so, point and front alike (the other
+    # levels are not held).
+    from tubeyield.jobs.front import front
+    fr = front(study, points=5)
+    assert fr.points[-1]["held"] and "state of E at 0.003876" in fr.points[-1]["held"], fr.points[-1]
+    assert [bool(p.get("held")) for p in fr.points] == [False] * 4 + [True]
+    assert "1 of 5 levels may lie further out" in fr.message and "an end of the front may lie further" in fr.message
 
 
 def _held_sweep():

@@ -192,9 +192,9 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
             if previous is not None and earlier is not None:
                 _predict(previous, earlier)
             point = _level_point(model, study, spec, float(level), solver, options, previous, warm=i > 1)
-            if point is not None and point["status"] == st.UNVERIFIED:
-                # this level needs a finer mesh than the front model's: refine for it alone (the front goes on
-                # on its own model)
+            if point is not None and (point["status"] == st.UNVERIFIED or point.get("held")):
+                # this level needs a finer mesh than the front model's, or a state bound holds it: refine for it
+                # alone (the front goes on on its own model)
                 previous = model.snapshot()
                 point = _refined_point(model, fstudy, study, spec, float(level), solver, options, timing) or point
                 model.restore(previous)
@@ -243,6 +243,11 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
         # said, not made a failure: the front's other points are verified; the end may lie further out
         result.message = "; ".join(([result.message] if result.message else []) +
                                    [f"an end of the front may lie further out: {held[0]}"])
+    held_levels = [p for p in result.points if p.get("held")]
+    if held_levels:
+        # said likewise: a level whose element could not be split further (numerics.max_elements) stays held
+        result.message = "; ".join(([result.message] if result.message else []) + [
+            f"{len(held_levels)} of {len(result.points)} levels may lie further out: {held_levels[0]['held']}"])
     timing["total"] = time.perf_counter() - t0
     return result
 
@@ -326,10 +331,16 @@ def _point(model, study: Study, spec, level: float, solver) -> dict:
     active = [r.text for r in limit_reports(model) if r.active]
     active += [f"{b.decision} at {b.side} bound" for b in bound_reports(model) if b.side in ("low", "high")]
     check = compare(model, reference(model), study.numerics.check_tolerance)
+    holds = model.state_bound_holds()
+    held = None
+    if holds:
+        s, z, m = holds[0]
+        held = (f"{HELD_BY_STATE_BOUND} on the state of {s} at {z:.4g} of the reactor length at the level "
+                f"{metric_display(spec.x, level)[0]:.6g} (multiplier {m:.2g})")
     return {"level": metric_display(spec.x, level)[0], "status": st.OPTIMAL if check.passed else st.UNVERIFIED,
             "x": x, "y": y, "trade_off": dy_dx, "decisions": decisions_to_user(study, values), "metrics": metrics,
             "active": active, "check": check.max_rel_error, "dominated": False,
-            "iterations": solver.last_stats.get("iterations")}
+            "iterations": solver.last_stats.get("iterations"), "held": held}
 
 
 def _slope(model, spec, level: float) -> tuple[float, bool]:
@@ -390,7 +401,7 @@ def _point_from_result(r: Result, spec, level: float) -> dict:
             "decisions": {k: v["value"] for k, v in r.decisions.items()},
             "metrics": {k: v["value"] for k, v in r.metrics.items()},
             "active": [lim["text"] for lim in r.limits if lim["active"]], "check": r.check.max_rel_error,
-            "dominated": False, "iterations": None}
+            "dominated": False, "iterations": None, "held": None}
 
 
 def _mark_dominated(points: list, xs: str, ys: str, tol: float = 1e-9) -> None:
