@@ -275,8 +275,8 @@ def _plug(sim: Simulation, kin: Kinetics, T_fun, T_in, method: str, rtol: float)
             T = y[n] if energy else (T_of(z) if callable(T_of) else T_of)
             scalar = y.ndim == 1
             if scalar:
-                # One state (LSODA's calls, BDF's steps): the rate laws run on Python floats, several times faster
-                # than on numpy scalars.
+                # One state (LSODA's calls, BDF's steps): the rate laws run on Python floats, faster than on numpy
+                # scalars (screening 16 points of the demo: 0.084 s -> 0.063 s; the 50-species network: 12.6 -> 8 s).
                 u, T = u.tolist(), float(T)
             conc = concentrations(st, dict(zip(symbols, u)), T, sim.c_s, sim.par)
             rates = kin.rates(conc, T, SCALAR_MATH if scalar else np)
