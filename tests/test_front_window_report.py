@@ -85,6 +85,19 @@ def test_front_slope_matches_finite_differences_of_the_front(demo, demo_front):
     assert pts[0]["trade_off"] == pytest.approx(forward, rel=3e-2)
 
 
+def test_the_first_slope_is_the_same_on_a_front_model_rebuilt_on_a_finer_mesh(demo, demo_front, monkeypatch):
+    # When the ends were verified on a finer mesh the front's model is rebuilt on it and does not hold the y-end's
+    # multipliers; the first level is then solved on it for the slope the limit conversion:A >= 0.80 sets there.
+    # Forced here on the same mesh: the slope must be the one read from the y-end's own multipliers.
+    import tubeyield.jobs.front as front_job
+    monkeypatch.setattr(front_job, "_finest_mesh", lambda model, *ends: list(model.edges))
+    rebuilt = front_job.front(demo, points=11)
+    assert rebuilt.timing["build"] > 0.01                     # the front model was built again
+    first, expected = rebuilt.points[0]["trade_off"], demo_front.points[0]["trade_off"]
+    assert expected is not None and first == pytest.approx(expected, rel=1e-6)
+    assert [p["x"] for p in rebuilt.points] == pytest.approx([p["x"] for p in demo_front.points], abs=1e-7)
+
+
 def test_front_ends_equal_single_metric_optima(demo, demo_front):
     spec = demo.front
     y_best = optimize(dataclasses.replace(demo, goal=dataclasses.replace(demo.goal, metric=spec.y)))

@@ -184,14 +184,22 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
     # on two demo fronts, against 13 and 21 for the first two levels before (the level constraint, slack at the
     # y-end, must take up its multiplier from zero).
     model.set_level(LEVEL, float(levels[0]))
-    result.points.append(_first_point(y_opt, model if y_snapshot is not None else None, spec))
-    previous, earlier = y_snapshot, None
+    previous, earlier, holds_y_end = y_snapshot, None, y_snapshot is not None
+    if not holds_y_end and _x_limits_at(model, spec, float(levels[0])):
+        # A front model rebuilt on a finer mesh does not hold the y-end's multipliers: where a limit on x sets the
+        # slope there, the first level is solved on it for that slope, and the front goes on from its solution.
+        res = solver.solve(model.m, options=options, reuse_structure=True)
+        if res.solver.termination_condition in OK_CONDITIONS:
+            holds_y_end, previous = True, model.snapshot()
+    result.points.append(_first_point(y_opt, model if holds_y_end else None, spec))
+    warm_second = previous is not None and previous is not y_snapshot
     with frozen_heap():             # the ends' models and solvers live on: out of the collector's scans
         for i in range(1, len(levels)):
             level = levels[i]
             if previous is not None and earlier is not None:
                 _predict(previous, earlier)
-            point = _level_point(model, study, spec, float(level), solver, options, previous, warm=i > 1)
+            point = _level_point(model, study, spec, float(level), solver, options, previous,
+                                 warm=i > 1 or warm_second)
             if point is not None and (point["status"] == st.UNVERIFIED or point.get("held")):
                 # this level needs a finer mesh than the front model's, or a state bound holds it: refine for it
                 # alone (the front goes on on its own model)
@@ -354,16 +362,20 @@ def _slope(model, spec, level: float) -> tuple[float, bool]:
     # neither, so the slope is their sum.
     level_var, x_scale = model.levels[LEVEL]
     sensitivity = (model.m.rc.get(level_var, 0.0) or 0.0) / x_scale
-    sense = ">=" if spec.x_sense == "max" else "<="
     on_limit = False
-    for lh in model.limits:
-        lim = lh.limit
-        if lim.metric == spec.x and lim.sense == sense and abs(lim.bound - level) <= 1e-6 * max(1.0, abs(level)):
-            sensitivity += limit_sensitivity(model, lh) / lh.scale
-            on_limit = True
+    for lh in _x_limits_at(model, spec, level):
+        sensitivity += limit_sensitivity(model, lh) / lh.scale
+        on_limit = True
     dy_dx = sensitivity * model.goal_scale
     dy_dx *= _display_factor(spec.y) / _display_factor(spec.x)
     return dy_dx, on_limit
+
+
+def _x_limits_at(model, spec, level: float) -> list:
+    """The study's limits on the front's x metric, in its direction, whose bound is `level`."""
+    sense = ">=" if spec.x_sense == "max" else "<="
+    return [lh for lh in model.limits if lh.limit.metric == spec.x and lh.limit.sense == sense
+            and abs(lh.limit.bound - level) <= 1e-6 * max(1.0, abs(level))]
 
 
 def _first_point(y_opt: Result, model, spec) -> dict:
