@@ -77,6 +77,8 @@ def test_frozen_heap_spares_live_objects_collects_new_garbage_and_leaves_a_freez
         frozen = gc.get_freeze_count()
         with frozen_heap():
             pass
-        assert gc.get_freeze_count() == frozen
+        # neither thawed (0) nor frozen further; frozen objects freed by reference counting leave the count, so it
+        # may have fallen by a few
+        assert 0 < gc.get_freeze_count() <= frozen
     finally:
         gc.unfreeze()

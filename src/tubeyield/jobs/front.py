@@ -181,8 +181,8 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
     # solve there took 21-22 Ipopt iterations on the demo fronts, and failed in about 1 of 25 runs of a series
     # network near complete conversion while the mesh estimate still varied between runs. The second level starts
     # cold from the y-end's primal point: a warm start from the y-end's primal-dual pair took 19 and 47 iterations
-    # on two demo fronts, against 13 and 21 for the first two levels before (the level constraint, slack at the
-    # y-end, must take up its multiplier from zero).
+    # on two demo fronts, against 15 and 36 cold (the level constraint, slack at the y-end, must take up its
+    # multiplier from zero).
     model.set_level(LEVEL, float(levels[0]))
     previous, earlier, holds_y_end = y_snapshot, None, y_snapshot is not None
     if not holds_y_end and _x_limits_at(model, spec, float(levels[0])):
@@ -399,8 +399,8 @@ def _display_factor(metric: Metric) -> float:
 
 
 def _end_point(end: Result, spec, name: str, which: str) -> dict:
-    """An end's own verified optimum as the front's first or last point, when that level could not be solved on
-    the front model; no slope (the level's multiplier is not there)."""
+    """An end's own verified optimum as the front's last point, when that level could not be solved on the front
+    model; no slope (the level's multiplier is not there)."""
     point = _point_from_result(end, spec, end.metrics[spec.x.text]["value"])
     point.update(trade_off=None,
                  note=f"the {name}'s own optimum (the {which} level could not be solved on the front model)")
