@@ -184,22 +184,21 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
     # on two demo fronts, against 15 and 36 cold (the level constraint, slack at the y-end, must take up its
     # multiplier from zero).
     model.set_level(LEVEL, float(levels[0]))
-    previous, earlier, holds_y_end = y_snapshot, None, y_snapshot is not None
-    if not holds_y_end and _x_limits_at(model, spec, float(levels[0])):
+    previous, earlier, first_solved = y_snapshot, None, False
+    if y_snapshot is None and _x_limits_at(model, spec, float(levels[0])):
         # A front model rebuilt on a finer mesh does not hold the y-end's multipliers: where a limit on x sets the
         # slope there, the first level is solved on it for that slope, and the front goes on from its solution.
         res = solver.solve(model.m, options=options, reuse_structure=True)
         if res.solver.termination_condition in OK_CONDITIONS:
-            holds_y_end, previous = True, model.snapshot()
-    result.points.append(_first_point(y_opt, model if holds_y_end else None, spec))
-    warm_second = previous is not None and previous is not y_snapshot
+            first_solved, previous = True, model.snapshot()
+    result.points.append(_first_point(y_opt, model if y_snapshot is not None or first_solved else None, spec))
     with frozen_heap():             # the ends' models and solvers live on: out of the collector's scans
         for i in range(1, len(levels)):
             level = levels[i]
             if previous is not None and earlier is not None:
                 _predict(previous, earlier)
             point = _level_point(model, study, spec, float(level), solver, options, previous,
-                                 warm=i > 1 or warm_second)
+                                 warm=i > 1 or first_solved)
             if point is not None and (point["status"] == st.UNVERIFIED or point.get("held")):
                 # this level needs a finer mesh than the front model's, or a state bound holds it: refine for it
                 # alone (the front goes on on its own model)
@@ -213,7 +212,8 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
                     if point is not None:
                         break
                 if point is None and x_opt.status == st.OPTIMAL:
-                    point = _end_point(x_opt, spec, "x-end", "last")
+                    point = _end_point(x_opt, spec, "the x-end's own optimum (the last level could not be solved "
+                                                    "on the front model)")
             if point is not None:
                 earlier, previous = (previous if point["status"] == st.OPTIMAL else None), model.snapshot()
                 result.points.append(point)
@@ -384,9 +384,7 @@ def _first_point(y_opt: Result, model, spec) -> dict:
     none does, the y-end's multipliers do not give it (the level constraint is only weakly active there, and where
     the y-end sits on decision bounds the measured values were 0.0064 against 0.0134 between the first two points),
     and no slope is reported."""
-    point = _point_from_result(y_opt, spec, y_opt.metrics[spec.x.text]["value"])
-    point["trade_off"] = None
-    point["note"] = "the y-end's own optimum"
+    point = _end_point(y_opt, spec, "the y-end's own optimum")
     if model is not None:
         dy_dx, on_limit = _slope(model, spec, model.levels[LEVEL][0].value * model.levels[LEVEL][1])
         if on_limit:
@@ -398,12 +396,11 @@ def _display_factor(metric: Metric) -> float:
     return metric_display(metric, 1.0)[0]
 
 
-def _end_point(end: Result, spec, name: str, which: str) -> dict:
-    """An end's own verified optimum as the front's last point, when that level could not be solved on the front
-    model; no slope (the level's multiplier is not there)."""
+def _end_point(end: Result, spec, note: str) -> dict:
+    """An end's own verified optimum as a point of the front: the first point always, the last one when its level
+    could not be solved on the front model. No slope: the level's multiplier is not there."""
     point = _point_from_result(end, spec, end.metrics[spec.x.text]["value"])
-    point.update(trade_off=None,
-                 note=f"the {name}'s own optimum (the {which} level could not be solved on the front model)")
+    point.update(trade_off=None, note=note)
     return point
 
 
