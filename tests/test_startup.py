@@ -41,14 +41,32 @@ def test_latin_hypercube_uniform_marginals():
 
 def test_optimize_command_imports_only_what_it_uses():
     code = ("import sys, json, tubeyield.cli, tubeyield.jobs.optimize, tubeyield.report.text; "
-            "print(json.dumps(sorted(m for m in sys.modules if m.split('.')[0] in ('scipy', 'pandas', 'matplotlib'))))")
+            "print(json.dumps(sorted(m for m in sys.modules if m.split('.')[0] in "
+            "('scipy', 'pandas', 'matplotlib', 'pyomo', 'dask', 'jinja2'))))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
     assert out.returncode == 0, out.stderr
     loaded = set(json.loads(out.stdout.strip().splitlines()[-1]))
     # scipy.stats (about 0.3 s) was loaded by a hook of Pyomo's whenever scipy was imported; plotting and tables are
-    # for the report
-    for heavy in ("scipy.stats", "scipy.interpolate", "matplotlib", "pandas"):
+    # for the report; pyomo.environ loads every Pyomo plug-in (tubeyield.modeling loads the two it needs); dask (with
+    # jinja2) came with pint's dask support (tubeyield.study.units)
+    for heavy in ("scipy.stats", "scipy.interpolate", "matplotlib", "pandas", "pyomo.environ", "pyomo.gdp", "dask",
+                  "jinja2"):
         assert heavy not in loaded, f"{heavy} is imported by the optimize command's modules"
+    # what the lean import must still provide: the collocation transformation and the NL writer
+    assert "pyomo.dae.plugins.colloc" in loaded and "pyomo.repn.plugins.nl_writer" in loaded
+
+
+def test_pint_loads_without_dask_and_dask_still_imports_afterwards():
+    # tubeyield.study.units hides dask from pint's import only; a sweep on a Dask cluster imports it later
+    code = ("import sys, json; import tubeyield.study.units as u; before = 'dask' in sys.modules; "
+            "import pint.compat, dask; "
+            "print(json.dumps([before, pint.compat.HAS_DASK, dask.delayed(sum)([1, 2, 3]).compute(), "
+            "u.convert(2.0, 'L/min', 'm^3/s')]))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr
+    before, pint_dask, total, flow = json.loads(out.stdout.strip().splitlines()[-1])
+    assert before is False and pint_dask is False and total == 6
+    assert abs(flow - 2e-3 / 60.0) < 1e-18
 
 
 def test_frozen_heap_spares_live_objects_collects_new_garbage_and_leaves_a_freeze_alone():

@@ -177,7 +177,7 @@ def add_experiment(m, k: int, study: Study, e: Experiment, reactions, per, start
     """Block m.E[k]: experiment e's states u (mol/L) and balances, initialized from `start` (a function of times,
     in s, giving mol/m^3). Returns {row index: state index (a collocation point, or the row)} for the samples."""
     import pyomo.dae as dae
-    import pyomo.environ as pyo
+    from tubeyield.modeling import pyo
     S = stoichiometric_matrix(study)
     symbols = study.symbols
     n = len(symbols)

@@ -113,7 +113,7 @@ class _Problem:
 
 
 def _build(coords: Coordinates, bounds, x0, mesh: list, starts: list) -> _Problem:
-    import pyomo.environ as pyo
+    from tubeyield.modeling import pyo
 
     from tubeyield.reactor.parameters import parametric_reactions
     study = coords.study
@@ -200,7 +200,7 @@ def _refined(study: Study, mesh: list, errors: list, tolerance: float) -> list:
 
 
 def _model_at_samples(coords: Coordinates, problem: _Problem) -> list[np.ndarray]:
-    import pyomo.environ as pyo
+    from tubeyield.modeling import pyo
     out = []
     for k, (at, e) in enumerate(zip(problem.blocks, coords.study.experiments)):
         b = problem.m.E[k]
@@ -213,7 +213,7 @@ def _model_at_samples(coords: Coordinates, problem: _Problem) -> list[np.ndarray
 
 
 def _x(problem: _Problem, P: int) -> np.ndarray:
-    import pyomo.environ as pyo
+    from tubeyield.modeling import pyo
     return np.array([pyo.value(problem.m.x[i]) for i in range(P)])
 
 
@@ -316,7 +316,7 @@ def _fit_core(study: Study, solver, tee: bool, timing: dict):
         run["status"] = str(condition)
         run["iterations"] = solver.last_stats.get("iterations")
         if condition in OK_CONDITIONS:
-            import pyomo.environ as pyo
+            from tubeyield.modeling import pyo
             run["ssr"] = float(pyo.value(problem.m.ssr))
             run["x"] = _x(problem, len(x0)).tolist()
             if best is None or run["ssr"] < best["ssr"]:
@@ -575,7 +575,7 @@ def _curves(coords: Coordinates, x, out: FitResult, problem: _Problem, sens: dic
     Batch and plug-flow curves are the collocation solution at its points (verified against scipy to the check
     tolerance); a stirred tank's curve is simulated over residence time, its band exact at the runs' rows and
     interpolated between them."""
-    import pyomo.environ as pyo
+    from tubeyield.modeling import pyo
     study = coords.study
     cov = np.array(out.kinetics["cov"]) if out.kinetics.get("cov") else None
     tq = stats.t_quantile(out.dof)
@@ -629,7 +629,7 @@ def _profile_intervals(coords: Coordinates, problem: _Problem, solver, out: FitR
     (nearly linear in the parameter: the profile t function), from the linearized end. Sets profile_low /
     profile_high (None where the SSR stays below the level up to a bound) and warns where they differ from the
     linearized interval by more than 20 % of its half-width."""
-    import pyomo.environ as pyo
+    from tubeyield.modeling import pyo
 
     from tubeyield.solve import OK_CONDITIONS
     m = problem.m
@@ -705,7 +705,7 @@ def _profile_intervals(coords: Coordinates, problem: _Problem, solver, out: FitR
 def _profile_problem(coords: Coordinates, coarse: _Problem, final: _Problem, out: FitResult) -> _Problem:
     """The NLP the profiles re-solve: the multistart's coarser one (cheaper) when its SSR at its optimum agrees with
     the re-simulation there to PROFILE_CHECK of the rise that defines the interval ends, else the verified one."""
-    import pyomo.environ as pyo
+    from tubeyield.modeling import pyo
     if coarse is final:
         return final
     x = np.array([pyo.value(coarse.m.x[i]) for i in range(len(coords.estimands))])

@@ -9,7 +9,7 @@ multipliers are nonzero, so they take part in the conflict), are the conflicting
 
 from __future__ import annotations
 
-import pyomo.environ as pyo
+from tubeyield.modeling import pyo
 
 from tubeyield.jobs.problem import timed_solve
 from tubeyield.reactor import build, state_scales

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import time
 
-import pyomo.environ as pyo
+from tubeyield.modeling import pyo
 
 from tubeyield import status as st
 from tubeyield.jobs.marginal_range import marginal_ranges

@@ -133,7 +133,7 @@ class _Scenarios:
 def _assemble(study: Study, model, scenario_studies: list, start: dict, sims: list, objective: str) -> _Scenarios:
     """The parent model: each scenario's clone (parameters pinned to the scenario, decisions at `start`, states
     from its simulation `sims[i]`), its decisions linked to the first clone's, the goal over the clones."""
-    import pyomo.environ as pyo
+    from tubeyield.modeling import pyo
     big = pyo.ConcreteModel(name=f"{study.name}-robust")
     big.dual = pyo.Suffix(direction=pyo.Suffix.IMPORT)
     clones = []
@@ -203,7 +203,7 @@ FIRST_TRY_ITERATIONS = 100                # Ipopt iterations from the nominal op
 def _start_levels(nlp: _Scenarios, model) -> list[tuple]:
     """For each scenario and limit missed at the starting point: (level variable, its bound, the limit's value at
     the start), all scaled, so that the levels can be moved from where the start stands to the bounds."""
-    import pyomo.environ as pyo
+    from tubeyield.modeling import pyo
     out = []
     for c in nlp.clones:
         for h in model.limits:
@@ -264,7 +264,7 @@ def _pressure(nlp: _Scenarios, kept: list[int]) -> dict[int, float]:
 
 
 def _decisions(nlp: _Scenarios, model) -> dict:
-    import pyomo.environ as pyo
+    from tubeyield.modeling import pyo
     out = {}
     first = nlp.clones[0]
     for name, h in model.decisions.items():
@@ -275,7 +275,7 @@ def _decisions(nlp: _Scenarios, model) -> dict:
 
 def _goal_over(nlp: _Scenarios, kept: list[int], study: Study, model) -> float:
     """The mean goal of the given scenarios at the current solution, in the goal's display units."""
-    import pyomo.environ as pyo
+    from tubeyield.modeling import pyo
 
     from tubeyield.reactor.metrics import metric_display
     values = [float(pyo.value(nlp.clones[i].goal.expr)) * model.goal_scale for i in kept]
@@ -290,7 +290,7 @@ def robust(study: Study, *, scenarios: int | None = None, share: float | None = 
            workers: int | None = None) -> RobustResult:
     """The robust operating point of `study` (module docstring). `backed_off` (optional): {label, point} from a
     sweep summary, validated beside the nominal and robust points."""
-    import pyomo.environ as pyo
+    from tubeyield.modeling import pyo
 
     from tubeyield.jobs.optimize import optimize
     from tubeyield.jobs.problem import prepare, starting_mesh
@@ -540,7 +540,7 @@ def _pool(workers: int | None):
 def _infeasible_or_failed(study, spec, d, nlp, model, condition, scenario_studies, timing) -> RobustResult:
     """An NLP that cannot hold every limit in every scenario: at the point Ipopt stopped, the limits missed and in
     how many scenarios."""
-    import pyomo.environ as pyo
+    from tubeyield.modeling import pyo
     from pyomo.opt import TerminationCondition
     if condition != TerminationCondition.infeasible:
         return _failed(study, spec, d, f"Ipopt did not converge on the robust NLP ({condition})", timing)

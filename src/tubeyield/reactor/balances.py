@@ -86,5 +86,5 @@ def math_for(T):
     """The math namespace for T: numpy for numbers and arrays, pyomo.environ for Pyomo expressions."""
     if isinstance(T, (int, float, np.ndarray, np.floating)):
         return np
-    import pyomo.environ as pyo
+    from tubeyield.modeling import pyo
     return pyo

@@ -11,7 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import pyomo.environ as pyo
+from tubeyield.modeling import pyo
 from pyomo.common.collections import ComponentMap
 
 from tubeyield.reactor.balances import concentration_scale, concentrations, inlet

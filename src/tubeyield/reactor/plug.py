@@ -20,7 +20,7 @@ import bisect
 
 import numpy as np
 import pyomo.dae as dae
-import pyomo.environ as pyo
+from tubeyield.modeling import pyo
 from pyomo.core.expr.visitor import identify_variables
 
 from tubeyield.reactor.balances import concentrations, math_for, wall_term

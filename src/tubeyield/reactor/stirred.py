@@ -9,7 +9,7 @@ of a stirred tank with heat exchange).
 
 from __future__ import annotations
 
-import pyomo.environ as pyo
+from tubeyield.modeling import pyo
 
 from tubeyield.reactor.balances import concentrations, math_for, wall_term
 from tubeyield.reactor.model import T_STATE_BOUNDS, ReactorModel

@@ -2,9 +2,10 @@
 
 from __future__ import annotations
 
+import importlib
 import shutil
 
-import pyomo.environ as pyo
+from pyomo.opt import SolverFactory
 
 from tubeyield.errors import StudyError
 # importing the plug-in module registers it with Pyomo's SolverFactory
@@ -19,14 +20,16 @@ def make_solver(numerics):
                                                 "(use solver = 'bundled' for the Ipopt in the casadi wheel)")
         return ExecutableIpopt()
     # every solve is bounded by the command's wall time (the job's own guard acts between solves)
-    return pyo.SolverFactory(NAME, options={"max_wall_time": float(numerics.time_limit)})
+    return SolverFactory(NAME, options={"max_wall_time": float(numerics.time_limit)})
 
 
 class ExecutableIpopt:
     """Pyomo's own `ipopt` interface with the same call as the plug-in (reuse options are ignored)."""
 
     def __init__(self):
-        self._solver = pyo.SolverFactory("ipopt")
+        # Pyomo's solver interfaces register themselves with pyomo.environ, which tubeyield.modeling does not load
+        importlib.import_module("pyomo.environ")
+        self._solver = SolverFactory("ipopt")
         self.last_stats = {}
         self.last_timing = {}
 

@@ -36,7 +36,7 @@ from collections import OrderedDict
 from dataclasses import dataclass, field
 
 import numpy as np
-import pyomo.environ as pyo
+from tubeyield.modeling import pyo
 from pyomo.opt import SolverFactory, SolverResults, SolverStatus, TerminationCondition
 from pyomo.repn.plugins.nl_writer import NLWriter
 

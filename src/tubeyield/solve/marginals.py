@@ -14,7 +14,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-import pyomo.environ as pyo
+from tubeyield.modeling import pyo
 
 from tubeyield.reactor.metrics import DISPLAY_UNIT
 from tubeyield.reactor.model import ReactorModel
