@@ -100,3 +100,22 @@ def test_frozen_heap_spares_live_objects_collects_new_garbage_and_leaves_a_freez
         assert 0 < gc.get_freeze_count() <= frozen
     finally:
         gc.unfreeze()
+
+
+def test_the_command_exits_quickly_with_mains_code_after_the_exit_handlers_and_complete_output(tmp_path):
+    # cli.run ends the process with os._exit once main() has returned: the exit handlers must still run, the output
+    # must be complete, and the code must be main's (0 for a good study, 2 for a user's mistake)
+    from pathlib import Path
+    study = Path(__file__).resolve().parents[1] / "scenarios" / "oxidation.toml"
+    code = ("import atexit, sys; atexit.register(lambda: print('handler ran', file=sys.stderr)); "
+            "from tubeyield.cli import run; sys.argv = ['tubeyield'] + sys.argv[1:]; run()")
+    ok = subprocess.run([sys.executable, "-c", code, "check", str(study)], capture_output=True, text=True, timeout=120)
+    assert ok.returncode == 0, ok.stderr
+    assert "handler ran" in ok.stderr
+    whole = subprocess.run([sys.executable, "-c", "import sys; from tubeyield.cli import main; "
+                            "raise SystemExit(main(sys.argv[1:]))", "check", str(study)],
+                           capture_output=True, text=True, timeout=120)
+    assert whole.returncode == 0 and ok.stdout == whole.stdout and len(ok.stdout) > 200
+    bad = subprocess.run([sys.executable, "-m", "tubeyield", "check", str(tmp_path / "missing.toml")],
+                         capture_output=True, text=True, timeout=120)
+    assert bad.returncode == 2 and "missing.toml" in bad.stderr and "Traceback" not in bad.stderr

@@ -1,3 +1,3 @@
-from tubeyield.cli import main
+from tubeyield.cli import run
 
-raise SystemExit(main())
+run()
