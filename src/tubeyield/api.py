@@ -79,11 +79,13 @@ def robust(study, *, scenarios: int | None = None, share: float | None = None, v
     return _robust(_study(study, "sweep"), scenarios=scenarios, share=share, validation=validation, workers=workers)
 
 
-def optimize(study, *, starts: int | None = None, seed: int = 0, relax: bool = True) -> Result:
+def optimize(study, *, starts: int | None = None, seed: int = 0, relax: bool = True,
+             workers: int | None = None) -> Result:
     """The best operating point, verified by re-simulation; `relax` re-solves each active limit at relaxed bounds to
-    say how far its marginal value holds."""
+    say how far its marginal value holds. The starts run on `workers` cores (default: all; 1 for one at a time)."""
     from tubeyield.jobs.optimize import optimize as _optimize
-    return _optimize(_study(study), starts=starts, seed=seed, relax=relax)
+    from tubeyield.solve.forked import usable_cores
+    return _optimize(_study(study), starts=starts, seed=seed, relax=relax, workers=workers or usable_cores())
 
 
 def simulate(study, values: dict | None = None, **settings) -> Result:

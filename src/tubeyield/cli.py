@@ -36,7 +36,8 @@ def _parser() -> argparse.ArgumentParser:
     o.add_argument("--json", action="store_true", help="print the Result as JSON")
     o.add_argument("--save", metavar="DIR", help=f"write {SAVED['optimize']}, {SAVED['optimize-profile']} and the inputs to DIR")
     o.add_argument("--starts", type=int, help="number of starting points (default: numerics.starts)")
-    o.add_argument("--tee", action="store_true", help="show Ipopt's iteration log")
+    o.add_argument("--tee", action="store_true", help="show Ipopt's iteration log (the starts then run one by one)")
+    o.add_argument("--workers", type=int, help="cores for the starts (default: all cores)")
     _kinetics_option(o)
 
     s = sub.add_parser("simulate", help="profiles and metrics at a given operating point")
@@ -267,7 +268,9 @@ def _optimize(args) -> int:
 
     study = _load(args.study, kinetics=args.kinetics)
     _at_least(args.starts, "--starts", 1, "a number of starting points")
-    result = optimize(study, starts=args.starts, tee=args.tee, relax=True)
+    _at_least(args.workers, "--workers", 1, "a number of cores")
+    from tubeyield.solve.forked import usable_cores
+    result = optimize(study, starts=args.starts, tee=args.tee, relax=True, workers=args.workers or usable_cores())
     if args.save:
         save_result(args.save, "optimize", result, study)
     if args.json:

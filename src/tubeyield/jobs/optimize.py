@@ -24,7 +24,7 @@ from tubeyield.reactor.metrics import all_metrics, metric_display
 from tubeyield.reactor.model import ReactorModel
 from tubeyield.reactor.verify import compare, reference
 from tubeyield.solve import ACCEPTABLE_CONDITIONS, OK_CONDITIONS, STALLED_CONDITIONS, make_solver
-from tubeyield.solve import multistart
+from tubeyield.solve import forked, multistart
 from tubeyield.solve.marginals import bound_reports, limit_reports
 from tubeyield.solve.options import STALL_OPTIONS
 from tubeyield.study.schema import Study
@@ -35,11 +35,14 @@ VERIFY_AT_MOST = 3     # distinct local optima tried, best first, until one pass
 
 
 def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=None, tee: bool = False,
-             model: ReactorModel | None = None, screened: list | None = None, relax: bool = False) -> Result:
+             model: ReactorModel | None = None, screened: list | None = None, relax: bool = False,
+             workers: int = 1) -> Result:
     """The best operating point of `study`. `model` (optional) is a prepared model of the same structure, reused
     with the study's parameter values (sweeps, fronts); otherwise one is built. `screened` (optional) holds
     simulated candidate points to rank for this goal instead of screening a new design. `relax` re-solves at
-    relaxed bounds to say over what range each active limit's marginal holds (jobs/marginal_range.py)."""
+    relaxed bounds to say over what range each active limit's marginal holds (jobs/marginal_range.py). `workers` > 1
+    solves the starts on that many cores, in forked copies of this process (solve/forked.py); the result is the
+    same."""
     t_start = time.perf_counter()
     numerics = study.numerics
     solver = solver or make_solver(numerics)
@@ -81,33 +84,13 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
             return _infeasible(study, closest, timing, t_start)
         candidates = [closest.as_candidate()] + candidates[:-1]
 
-    runs, found = [], []
-    for i, cand in enumerate(candidates):
-        model.set_decisions(cand.decisions)
-        model.initialize(cand.simulation)
-        res = timed_solve(solver, model, timing, options=options, reuse_structure=i > 0 or reuse, tee=tee)
-        condition = res.solver.termination_condition
-        retried = condition in STALLED_CONDITIONS
-        if retried:
-            # the same start once more with the other barrier strategy (solve/options.py, STALL_OPTIONS)
-            model.set_decisions(cand.decisions)
-            model.initialize(cand.simulation)
-            res = timed_solve(solver, model, timing, options={**STALL_OPTIONS, **options}, reuse_structure=True,
-                              tee=tee)
-            condition = res.solver.termination_condition
-        if condition in ACCEPTABLE_CONDITIONS:
-            # Ipopt stopped at its "acceptable" level only: go on from there once, warm, before flagging it
-            res = timed_solve(solver, model, timing, options=options, reuse_structure=True, warmstart=True, tee=tee)
-            condition = res.solver.termination_condition
-        run = {"from": cand.label, "start": decisions_to_user(study, cand.decisions), "status": str(condition),
-               "iterations": solver.last_stats.get("iterations"), "goal": None}
-        if retried:
-            run["retried"] = "stalled at first; solved again with a monotone barrier update"
-        if condition in OK_CONDITIONS or condition in ACCEPTABLE_CONDITIONS:
-            run["goal"] = model.metric_value(study.goal.metric)
-            run["acceptable_only"] = condition not in OK_CONDITIONS
-            found.append((run, model.snapshot()))
-        runs.append(run)
+    if workers > 1 and len(candidates) > 1 and not tee and hasattr(solver, "build") and forked.can_fork():
+        outcomes = _forked_starts(study, model, solver, options, candidates, reuse, timing, workers)
+    else:
+        outcomes = [_solve_start(study, model, solver, options, cand, i > 0 or reuse, timing, tee)
+                    for i, cand in enumerate(candidates)]
+    runs = [run for run, _ in outcomes]
+    found = [(run, snap) for run, snap in outcomes if snap is not None]
 
     if not found:
         if closest is None and study.goal.limits:
@@ -157,6 +140,68 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
     if note:
         result.warnings.append(note)
     return result
+
+
+def _solve_start(study: Study, model: ReactorModel, solver, options: dict, cand, reuse_structure: bool,
+                 timing: dict, tee: bool) -> tuple[dict, dict | None]:
+    """One start: Ipopt from the candidate's simulated profile (once more with the stall options when it stalls,
+    and on from an acceptable-only point once, warm). Returns the run's record and, when it converged, a snapshot of
+    the solution."""
+    model.set_decisions(cand.decisions)
+    model.initialize(cand.simulation)
+    res = timed_solve(solver, model, timing, options=options, reuse_structure=reuse_structure, tee=tee)
+    condition = res.solver.termination_condition
+    retried = condition in STALLED_CONDITIONS
+    if retried:
+        # the same start once more with the other barrier strategy (solve/options.py, STALL_OPTIONS)
+        model.set_decisions(cand.decisions)
+        model.initialize(cand.simulation)
+        res = timed_solve(solver, model, timing, options={**STALL_OPTIONS, **options}, reuse_structure=True, tee=tee)
+        condition = res.solver.termination_condition
+    if condition in ACCEPTABLE_CONDITIONS:
+        # Ipopt stopped at its "acceptable" level only: go on from there once, warm, before flagging it
+        res = timed_solve(solver, model, timing, options=options, reuse_structure=True, warmstart=True, tee=tee)
+        condition = res.solver.termination_condition
+    run = {"from": cand.label, "start": decisions_to_user(study, cand.decisions), "status": str(condition),
+           "iterations": solver.last_stats.get("iterations"), "goal": None}
+    if retried:
+        run["retried"] = "stalled at first; solved again with a monotone barrier update"
+    if condition in OK_CONDITIONS or condition in ACCEPTABLE_CONDITIONS:
+        run["goal"] = model.metric_value(study.goal.metric)
+        run["acceptable_only"] = condition not in OK_CONDITIONS
+        return run, model.snapshot()
+    return run, None
+
+
+def _forked_starts(study: Study, model: ReactorModel, solver, options: dict, candidates: list, reuse: bool,
+                   timing: dict, workers: int) -> list:
+    """The starts on `workers` cores (solve/forked.py): the solver is built here first, so that every forked copy
+    solves with it as the serial loop would (the same start values, options and built solver give the same run;
+    tests/test_forked_starts.py). The copies hand back each run's record, its solution as plain numbers and its
+    stage times; the multipliers of the last start are taken as this solver's own, as after the serial loop.
+    `timing` gets the stage times summed over the starts (work, not wall time) and "starts_wall"."""
+    t = time.perf_counter()
+    model.set_decisions(candidates[0].decisions)
+    model.initialize(candidates[0].simulation)
+    solver.build(model.m, options=options, reuse_structure=reuse)
+    for k in ("nl_write", "solver_build"):
+        timing[k] = timing.get(k, 0.0) + solver.last_timing.get(k, 0.0)
+    timing["solve"] = timing.get("solve", 0.0) + solver.last_timing.get("total", 0.0)
+
+    def one(i: int):
+        own: dict = {}
+        run, snap = _solve_start(study, model, solver, options, candidates[i], True, own, False)
+        return run, None if snap is None else model.plain_snapshot(snap), own, solver.last_multipliers()
+
+    outcomes = forked.forked_map(one, len(candidates), workers)
+    for _run, _plain, own, _pair in outcomes:
+        for k, v in own.items():
+            timing[k] = timing.get(k, 0.0) + v
+    if outcomes[-1][3] is not None:
+        solver.remember_multipliers(outcomes[-1][3])
+    timing["starts_wall"] = time.perf_counter() - t
+    timing["start_workers"] = min(workers, len(candidates))
+    return [(run, None if plain is None else model.from_plain(plain)) for run, plain, _own, _pair in outcomes]
 
 
 # The opening of the warning that a state bound holds the optimum (ReactorModel.state_bound_holds); the front

@@ -317,8 +317,11 @@ def _drive(executor, study: Study, todo: list[Scenario], store: Store, outcome: 
     attempts = {s.id: 0 for s in todo}
     queue, running = list(todo), {}
     idle_since = None
-    bar = tqdm(total=len(todo), unit="scenario", file=sys.stderr, disable=not progress, mininterval=0.5,
-               dynamic_ncols=True, smoothing=0.1)
+    # no monitor thread (tqdm starts one per process, for good): the bar is updated as each result arrives anyway,
+    # and a process with another thread running does not fork the starts of an optimization (solve/forked.py)
+    bar = type("SweepBar", (tqdm,), {"monitor_interval": 0})(
+        total=len(todo), unit="scenario", file=sys.stderr, disable=not progress, mininterval=0.5, dynamic_ncols=True,
+        smoothing=0.1)
 
     def record(row: dict) -> None:
         store.put(row)

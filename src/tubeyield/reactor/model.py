@@ -369,6 +369,32 @@ class ReactorModel:
             suffix.clear()
             suffix.update(saved)
 
+    def plain_snapshot(self, snap: dict) -> dict:
+        """`snap` as plain numbers, for a forked copy of this process to hand back (solve/forked.py): the values in
+        the order of the model's variables, duals and reduced costs by position in its constraint and variable
+        lists. A copy's lists hold its copies of the same components in the same order."""
+        variables = self._variables()
+        if len(snap["values"]) != len(variables):
+            raise ValueError("a snapshot of another structure of the model")
+        var_at = {id(v): k for k, v in enumerate(variables)}
+        con_at = {id(c): k for k, c in enumerate(self._constraints())}
+        return {"values": [x for _, x in snap["values"]],
+                "dual": [(con_at[id(c)], y) for c, y in snap["dual"].items()],
+                "rc": [(var_at[id(v)], y) for v, y in snap["rc"].items()]}
+
+    def from_plain(self, plain: dict) -> dict:
+        """The snapshot that plain_snapshot gave as plain numbers (in this process or a forked copy of it)."""
+        variables, constraints = self._variables(), self._constraints()
+        dual, rc = ComponentMap(), ComponentMap()
+        for k, y in plain["dual"]:
+            dual[constraints[k]] = y
+        for k, y in plain["rc"]:
+            rc[variables[k]] = y
+        return {"values": list(zip(variables, plain["values"])), "dual": dual, "rc": rc}
+
+    def _constraints(self) -> list:
+        return list(self.m.component_data_objects(pyo.Constraint, descend_into=True))
+
     def _variables(self) -> list:
         """Every variable of the model, listed once per set of Var components and their sizes (a snapshot of every
         sweep scenario and front level walked the model for them: 6 ms of a 50 ms warm re-solve on the demo)."""

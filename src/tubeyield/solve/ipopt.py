@@ -114,6 +114,8 @@ class BundledIpopt:
         self._last: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()   # model -> (written, built) last used
         self.last_timing: dict[str, float] = {}
         self.last_stats: dict = {}
+        self._last_multipliers = None
+        self._last_structure = None
 
     # ------------------------------------------------------------------------------------------- Pyomo's interface
 
@@ -147,33 +149,8 @@ class BundledIpopt:
         same structure; `reuse_structure` skips the NL write when this model object was written before and only
         variable values and bounds have changed since (the caller's promise)."""
         t0 = time.perf_counter()
-        opts = {**DEFAULT_OPTIONS, **self.options, **(options or {})}
-        written = self._written.get(model) if reuse_structure else None
-        if written is None:
-            written = _write_nl(model)
-            self._written[model] = written
-        t_write = time.perf_counter() - t0
-
-        x0 = np.array([v.value if v.value is not None else _interior(v) for v in written.variables], dtype=float)
-        lbx = np.array([-np.inf if v.lb is None else v.lb for v in written.variables], dtype=float)
-        ubx = np.array([np.inf if v.ub is None else v.ub for v in written.variables], dtype=float)
-        pinned_mask = lbx == ubx
-        x0[pinned_mask] = lbx[pinned_mask]
-
-        structure = (written.key_text, tuple(np.nonzero(pinned_mask)[0]))
-        multipliers = self._multipliers.get(structure)
-        has_warm = warmstart and multipliers is not None
-        key = structure + (tuple(sorted((k, str(v)) for k, v in opts.items())), bool(tee), bool(has_warm))
-        t1 = time.perf_counter()
-        built = self._built.get(key)
-        if built is None:
-            built = _build(written, pinned_mask, {**opts, **(WARM_OPTIONS if has_warm else {})}, tee)
-            self._built[key] = built
-            while len(self._built) > self.max_cached:
-                self._built.popitem(last=False)
-        else:
-            self._built.move_to_end(key)
-        t_build = time.perf_counter() - t1
+        (written, built, structure, multipliers, has_warm, x0, lbx, ubx, t_write,
+         t_build) = self._ready(model, options, warmstart, reuse_structure, tee)
 
         args = dict(x0=x0[built.free], lbx=lbx[built.free], ubx=ubx[built.free], lbg=written.lbg, ubg=written.ubg,
                     p=x0[built.pinned])
@@ -183,10 +160,7 @@ class BundledIpopt:
         sol = built.solver(**args)
         t_solve = time.perf_counter() - t2
         stats = built.solver.stats()
-        self._multipliers[structure] = (np.array(sol["lam_x"]).ravel(), np.array(sol["lam_g"]).ravel())
-        self._multipliers.move_to_end(structure)
-        while len(self._multipliers) > self.max_cached:
-            self._multipliers.popitem(last=False)
+        self.remember_multipliers((np.array(sol["lam_x"]).ravel(), np.array(sol["lam_g"]).ravel()), structure)
 
         self._last[model] = (written, built)
         status_text = stats.get("return_status", "unknown")
@@ -211,6 +185,64 @@ class BundledIpopt:
         results.problem.lower_bound = results.problem.upper_bound = self.last_stats["objective"]
         return results
 
+
+    def build(self, model, *, options: dict | None = None, reuse_structure: bool = False, tee: bool = False) -> None:
+        """Write `model` and build its solver for `options`, as `solve` would, without solving: forked copies of the
+        process then share the built solver (solve/forked.py)."""
+        t0 = time.perf_counter()
+        *_, t_write, t_build = self._ready(model, options, False, reuse_structure, tee)
+        self.last_timing = {"nl_write": t_write, "solver_build": t_build, "ipopt": 0.0,
+                            "total": time.perf_counter() - t0}
+
+    def last_multipliers(self):
+        """(lam_x, lam_g) of the last solve, to hand to remember_multipliers in a forked copy's parent; None before
+        any solve."""
+        return self._last_multipliers
+
+    def remember_multipliers(self, pair: tuple, structure: tuple | None = None) -> None:
+        """Take `pair` as the last multipliers of `structure` (default: that of the last solve or build), from which
+        a warm start of that structure starts: a solve's own, or those of a solve in a forked copy of this process
+        (solve/forked.py), so that the copy leaves the same state as solving here would have."""
+        structure = self._last_structure if structure is None else structure
+        self._multipliers[structure] = pair
+        self._multipliers.move_to_end(structure)
+        while len(self._multipliers) > self.max_cached:
+            self._multipliers.popitem(last=False)
+        self._last_multipliers = pair
+
+    def _ready(self, model, options, warmstart: bool, reuse_structure: bool, tee: bool):
+        """The written NLP and the built solver for a solve of `model`, with the start, bounds and warm-start
+        multipliers, and the seconds spent writing and building."""
+        t0 = time.perf_counter()
+        opts = {**DEFAULT_OPTIONS, **self.options, **(options or {})}
+        written = self._written.get(model) if reuse_structure else None
+        if written is None:
+            written = _write_nl(model)
+            self._written[model] = written
+        t_write = time.perf_counter() - t0
+
+        x0 = np.array([v.value if v.value is not None else _interior(v) for v in written.variables], dtype=float)
+        lbx = np.array([-np.inf if v.lb is None else v.lb for v in written.variables], dtype=float)
+        ubx = np.array([np.inf if v.ub is None else v.ub for v in written.variables], dtype=float)
+        pinned_mask = lbx == ubx
+        x0[pinned_mask] = lbx[pinned_mask]
+
+        structure = (written.key_text, tuple(np.nonzero(pinned_mask)[0]))
+        self._last_structure = structure
+        multipliers = self._multipliers.get(structure)
+        has_warm = warmstart and multipliers is not None
+        key = structure + (tuple(sorted((k, str(v)) for k, v in opts.items())), bool(tee), bool(has_warm))
+        t1 = time.perf_counter()
+        built = self._built.get(key)
+        if built is None:
+            built = _build(written, pinned_mask, {**opts, **(WARM_OPTIONS if has_warm else {})}, tee)
+            self._built[key] = built
+            while len(self._built) > self.max_cached:
+                self._built.popitem(last=False)
+        else:
+            self._built.move_to_end(key)
+        t_build = time.perf_counter() - t1
+        return written, built, structure, multipliers, has_warm, x0, lbx, ubx, t_write, t_build
 
     def constraint_jacobian(self, model):
         """The Jacobian of every constraint body with respect to the variables Ipopt optimized in the last solve of

@@ -1,0 +1,108 @@
+"""The starts of one optimization on several cores (solve/forked.py): the same result as one at a time, and nothing
+lost when a forked copy fails.
+
+Reference: the serial loop itself. Starts differ only in their initial values (the built solver, options and start
+values are the same in a forked copy), so a forked start must reproduce the serial one to the last bit: the same
+Ipopt iterations, goal values, decisions and multipliers (common practice for a parallel rewrite of a deterministic
+loop: compare with the serial result).
+"""
+
+from __future__ import annotations
+
+import os
+
+import pytest
+
+from helpers import SCENARIOS
+from tubeyield.jobs.optimize import optimize
+from tubeyield.solve import forked
+from tubeyield.study import load_study
+
+pytestmark = pytest.mark.skipif(not forked.can_fork(), reason="fork(2) is POSIX only")
+
+
+def test_forked_map_returns_every_result_in_order():
+    parent = os.getpid()
+    out = forked.forked_map(lambda i: (i * i, os.getpid() == parent), 7, 3)
+    assert [v for v, _ in out] == [i * i for i in range(7)]
+    # which process takes which task depends on timing, so only the values are asserted; one worker computes all
+    # of them in this process
+    assert forked.forked_map(lambda i: os.getpid() == parent, 4, 1) == [True] * 4
+
+
+def test_a_task_that_fails_or_dies_in_a_copy_is_computed_here():
+    parent = os.getpid()
+
+    def raising(i):
+        if os.getpid() != parent:
+            raise RuntimeError("a failure in the copy")
+        return i + 100
+
+    def dying(i):
+        if os.getpid() != parent:
+            os._exit(3)                      # the copy ends without handing anything back
+        return -i
+
+    assert forked.forked_map(raising, 5, 2) == [100, 101, 102, 103, 104]
+    assert forked.forked_map(dying, 5, 2) == [0, -1, -2, -3, -4]
+
+
+def test_a_failure_here_stops_the_copies_and_is_raised(monkeypatch):
+    parent = os.getpid()
+    made = []
+    fork = os.fork
+
+    def recorded_fork():
+        pid = fork()
+        if pid:
+            made.append(pid)
+        return pid
+
+    monkeypatch.setattr(os, "fork", recorded_fork)
+
+    def task(i):
+        if os.getpid() == parent:
+            raise ValueError("here")
+        import time
+        time.sleep(30)                       # a copy still working when this process gives up
+        return i
+
+    import time
+    t = time.perf_counter()
+    with pytest.raises(ValueError, match="here"):
+        forked.forked_map(task, 4, 2)
+    assert time.perf_counter() - t < 20      # the copy was stopped, not waited for
+    assert len(made) == 1
+    with pytest.raises(ChildProcessError):
+        os.waitpid(made[0], os.WNOHANG)      # and reaped: it is no child of this process any more
+
+
+def test_the_demo_optimum_is_the_same_with_its_starts_on_two_cores():
+    import threading
+    assert forked.can_fork(), f"another thread runs in the test process: {threading.enumerate()}"
+    study = load_study(SCENARIOS / "oxidation.toml")
+    serial = optimize(study, starts=4, workers=1, relax=True)
+    parallel = optimize(study, starts=4, workers=2, relax=True)
+    assert serial.status == parallel.status == "optimal"
+    assert parallel.timing["start_workers"] == 2 and "start_workers" not in serial.timing
+    a, b = serial.to_dict(), parallel.to_dict()
+    assert [(r["from"], r["status"], r["iterations"], r["goal"]) for r in a["starts"]["runs"]] == \
+        [(r["from"], r["status"], r["iterations"], r["goal"]) for r in b["starts"]["runs"]]
+    assert a["goal"] == b["goal"] and a["decisions"] == b["decisions"]
+    assert a["limits"] == b["limits"]                      # marginals and their relaxed re-solves included
+    assert serial.check.max_rel_error == parallel.check.max_rel_error
+
+
+def test_no_fork_while_another_thread_runs():
+    import threading
+    stop = threading.Event()
+    other = threading.Thread(target=stop.wait)
+    other.start()
+    try:
+        assert not forked.can_fork()
+        parent = os.getpid()
+        assert forked.forked_map(lambda i: os.getpid() == parent, 3, 2) == [True, True, True]
+    finally:
+        stop.set()
+        other.join()
+    assert forked.can_fork()
