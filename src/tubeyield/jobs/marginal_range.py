@@ -13,7 +13,7 @@ from __future__ import annotations
 from tubeyield.jobs.problem import timed_solve
 from tubeyield.reactor.metrics import metric_display
 from tubeyield.reactor.model import ReactorModel
-from tubeyield.solve import OK_CONDITIONS
+from tubeyield.solve import OK_CONDITIONS, forked
 from tubeyield.study.schema import Study
 from tubeyield.study.units import convert, unit_step
 
@@ -24,10 +24,10 @@ MAX_CHECKED = 4                   # active limits checked (the largest marginals
 
 
 def marginal_ranges(study: Study, model: ReactorModel, solver, options: dict, limits: list[dict],
-                    timing: dict) -> None:
+                    timing: dict, workers: int = 1) -> None:
     """Add a "relaxed" entry to each active limit in `limits` (the result's limit dicts, in study order):
     [{"bound", "gain", "predicted", "solved"}] and "holds_to" (the farthest bound tried where the marginal held,
-    None when it held at none)."""
+    None when it held at none). `workers` > 1 solves that many steps at a time (solve/forked.py)."""
     active = [(i, lim) for i, lim in enumerate(limits) if lim.get("active")]
     active.sort(key=lambda p: -abs(p[1]["marginal"]))
     if not active:
@@ -44,23 +44,39 @@ def marginal_ranges(study: Study, model: ReactorModel, solver, options: dict, li
             size = max(abs(bound_user), FRACTION_FLOOR if not lim.unit else 0.0) or 1.0
             sign = 1.0 if lim.sense == "<=" else -1.0              # the direction that relaxes the limit
             original = handle.bound                               # SI; a tightened temperature limit stays so
-            steps, holds_to = [], None
-            for share in RELAX_STEPS:
-                change = sign * share * size                      # user units
-                handle.set_bound(original + change * per_user)
+            steps, holds_to, k = [], None, 0
+
+            def relaxed(j: int, batch: tuple) -> tuple:
+                handle.set_bound(original + sign * batch[j] * size * per_user)
                 model.restore(snap)
                 # only the pinned bound moved: no new NL file, no new solver; a cold start from the optimum
-                res = timed_solve(solver, model, timing, options=options, reuse_structure=True)
+                own: dict = {}
+                res = timed_solve(solver, model, own, options=options, reuse_structure=True)
                 solved = res.solver.termination_condition in OK_CONDITIONS
-                gain = _goal(model) - goal0 if solved else None
-                predicted = entry["marginal"] * change
-                steps.append({"bound": bound_user + change, "gain": gain, "predicted": predicted, "solved": solved})
-                if not solved:
-                    break
-                if abs(gain - predicted) <= LINEAR_TOLERANCE * max(abs(predicted), abs(gain), 1e-12):
+                return solved, (_goal(model) - goal0 if solved else None), own
+
+            while k < len(RELAX_STEPS):
+                # with more than one core, the next steps are solved side by side in forked copies (each step is a
+                # cold solve from the optimum, so the result is the same); those past the first that fails or
+                # stops holding are not used
+                batch = RELAX_STEPS[k:k + max(1, workers)]
+                outs = forked.forked_map(lambda j: relaxed(j, batch), len(batch), workers)
+                stop = False
+                for share, (solved, gain, own) in zip(batch, outs):
+                    for key, v in own.items():
+                        timing[key] = timing.get(key, 0.0) + v
+                    change = sign * share * size                  # user units
+                    predicted = entry["marginal"] * change
+                    steps.append({"bound": bound_user + change, "gain": gain, "predicted": predicted,
+                                  "solved": solved})
+                    stop = not solved or not abs(gain - predicted) <= LINEAR_TOLERANCE * max(abs(predicted),
+                                                                                              abs(gain), 1e-12)
+                    if stop:
+                        break
                     holds_to = bound_user + change
-                else:
+                if stop:
                     break
+                k += len(batch)
             handle.set_bound(original)
             entry["relaxed"] = steps
             entry["holds_to"] = holds_to

@@ -118,7 +118,7 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
     result = _result(study, verified.model, status, verified.check, starts_info, timing, t_start, verified)
     if status == st.OPTIMAL and relax:
         t = time.perf_counter()
-        marginal_ranges(study, verified.model, solver, options, result.limits, result.timing)
+        marginal_ranges(study, verified.model, solver, options, result.limits, result.timing, workers=workers)
         result.timing["marginal_ranges"] = time.perf_counter() - t
         result.timing["total"] = time.perf_counter() - t_start
     if status == st.OPTIMAL and run is not tried[0][0]:
