@@ -92,6 +92,9 @@ def test_the_demo_optimum_is_the_same_with_its_starts_on_two_cores():
     assert a["limits"] == b["limits"]                      # marginals and their relaxed re-solves included
     # the relaxed re-solves ran two steps at a time on two cores, and the second step of each stopped the search
     assert sum(len(lim.get("relaxed", [])) >= 2 for lim in b["limits"]) >= 2
+    from tubeyield.report.text import optimum_summary
+    text = optimum_summary(parallel)
+    assert "on 2 cores" in text and "start_workers" not in text and "on 2 cores" not in optimum_summary(serial)
     assert serial.check.max_rel_error == parallel.check.max_rel_error
 
 

@@ -119,10 +119,13 @@ def optimum_summary(result) -> str:
         out += [f"  {n}" for n in c.notes]
     if result.starts.get("n"):
         s = result.starts
-        out.append(f"starts: {s['ok']} of {s['n']} converged, {s['reached_best']} reached the best point")
+        cores = result.timing.get("start_workers")
+        out.append(f"starts: {s['ok']} of {s['n']} converged, {s['reached_best']} reached the best point"
+                   + (f" (on {cores} cores: solve and ipopt below add up the cores' time)" if cores else ""))
     t = result.timing
     if "total" in t:
-        out.append("time: " + f"{t['total']:.2f} s (" + ", ".join(f"{k} {v:.2f}" for k, v in t.items() if k != "total") + ")")
+        out.append("time: " + f"{t['total']:.2f} s (" + ", ".join(f"{k} {v:.2f}" for k, v in t.items()
+                                                               if k not in ("total", "start_workers")) + ")")
     for w in result.warnings:
         out.append(f"warning: {w}")
     out += ["", CAUTION]
