@@ -7,8 +7,8 @@ nothing is pickled on the way in, and only each task's plain result (numbers, li
 pipe. The tasks are handed out one at a time from a pipe of indices, so a slow start does not hold up the others.
 
 The result is always complete and in index order: a copy that fails, is killed or returns nothing leaves its tasks
-for this process to compute. Only where fork exists (POSIX), no other thread runs, and the caller asks for more than
-one worker; the copies end with os._exit, so they run no exit handlers and flush none of the parent's buffered
+for this process to compute. Only on Linux, while no other thread runs, and when the caller asks for more than one
+worker; the copies end with os._exit, so they run no exit handlers and flush none of the parent's buffered
 output.
 """
 
@@ -18,6 +18,7 @@ import os
 import pickle
 import signal
 import struct
+import sys
 import threading
 
 _INDEX = struct.Struct("<i")
@@ -33,9 +34,11 @@ def usable_cores() -> int:
 
 
 def can_fork() -> bool:
-    """fork(2) exists, and this process runs no other thread: a copy holds only the forking thread, and a lock another
-    thread held at that moment (the allocator's, logging's) would stay locked in it for good."""
-    return hasattr(os, "fork") and hasattr(os, "waitpid") and threading.active_count() == 1
+    """Linux, and this process runs no other thread: a copy holds only the forking thread, and a lock another thread
+    held at that moment (the allocator's, logging's) would stay locked in it for good. Other systems solve one start
+    after another: on macOS system frameworks may not survive a fork (Python's multiprocessing no longer forks there
+    by default, for that reason)."""
+    return sys.platform.startswith("linux") and hasattr(os, "fork") and threading.active_count() == 1
 
 
 def forked_map(task, n: int, workers: int) -> list:
