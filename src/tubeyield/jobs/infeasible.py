@@ -9,9 +9,8 @@ multipliers are nonzero, so they take part in the conflict), are the conflicting
 
 from __future__ import annotations
 
-from tubeyield.modeling import pyo
-
 from tubeyield.jobs.problem import timed_solve
+from tubeyield.modeling import pyo
 from tubeyield.reactor import build, state_scales
 from tubeyield.solve import OK_CONDITIONS
 from tubeyield.study.units import unit_step

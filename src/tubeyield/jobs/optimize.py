@@ -11,15 +11,14 @@ from __future__ import annotations
 
 import time
 
-from tubeyield.modeling import pyo
-
 from tubeyield import status as st
-from tubeyield.jobs.marginal_range import marginal_ranges
 from tubeyield.jobs.infeasible import FEASIBLE_VIOLATION, closest_point, conflict_message, conflicts
+from tubeyield.jobs.marginal_range import marginal_ranges
 from tubeyield.jobs.problem import prepare, starting_mesh, timed_solve
 from tubeyield.jobs.profile_search import is_profile_study, profile_starts
 from tubeyield.jobs.refine import verify_and_refine
 from tubeyield.jobs.result import Result
+from tubeyield.modeling import pyo
 from tubeyield.reactor.metrics import all_metrics, metric_display
 from tubeyield.reactor.model import ReactorModel
 from tubeyield.reactor.verify import compare, reference

@@ -11,9 +11,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from tubeyield.modeling import pyo
 from pyomo.common.collections import ComponentMap
 
+from tubeyield.modeling import pyo
 from tubeyield.reactor.balances import concentration_scale, concentrations, inlet
 from tubeyield.reactor.kinetics import Kinetics
 from tubeyield.reactor.metrics import metric_value

@@ -20,9 +20,9 @@ import bisect
 
 import numpy as np
 import pyomo.dae as dae
-from tubeyield.modeling import pyo
 from pyomo.core.expr.visitor import identify_variables
 
+from tubeyield.modeling import pyo
 from tubeyield.reactor.balances import concentrations, math_for, wall_term
 from tubeyield.reactor.mesh import breakpoints, initial_edges, radau_roots
 from tubeyield.reactor.model import T_STATE_BOUNDS, Handle, ReactorModel

@@ -10,7 +10,6 @@ of a stirred tank with heat exchange).
 from __future__ import annotations
 
 from tubeyield.modeling import pyo
-
 from tubeyield.reactor.balances import concentrations, math_for, wall_term
 from tubeyield.reactor.model import T_STATE_BOUNDS, ReactorModel
 

@@ -1,15 +1,15 @@
-"""The starts of one optimization on several cores: forked copies of the process share its built model and solver.
+"""Solves of one built model on several cores: forked copies of the process share its model and solver.
 
-A multistart optimization solves the same NLP from several starting points (solve/multistart.py); the solver is
-built once (NL write and casadi's expansion) and every start is a call of it. `forked_map` runs such calls in this
-process and in copies of it made by fork(2), which inherit the built model and solver as they are (copy on write):
-nothing is pickled on the way in, and only each task's plain result (numbers, lists, dicts) comes back through a
-pipe. The tasks are handed out one at a time from a pipe of indices, so a slow start does not hold up the others.
+A multistart optimization solves the same NLP from several starting points (solve/multistart.py), and the marginal
+ranges re-solve it at relaxed bounds (jobs/marginal_range.py); the solver is built once (NL write and casadi's
+expansion) and every solve is a call of it. `forked_map` runs such calls in this process and in copies of it made by
+fork(2), which inherit the built model and solver as they are (copy on write): nothing is pickled on the way in, and
+only each task's plain result (numbers, lists, dicts) comes back through a pipe. The tasks are handed out one at a
+time from a pipe of indices, so a slow start does not hold up the others.
 
 The result is always complete and in index order: a copy that fails, is killed or returns nothing leaves its tasks
 for this process to compute. Only on Linux, while no other thread runs, and when the caller asks for more than one
-worker; the copies end with os._exit, so they run no exit handlers and flush none of the parent's buffered
-output.
+worker; the copies end with os._exit, so they run no exit handlers and flush none of the parent's buffered output.
 """
 
 from __future__ import annotations

@@ -36,11 +36,11 @@ from collections import OrderedDict
 from dataclasses import dataclass, field
 
 import numpy as np
-from tubeyield.modeling import pyo
 from pyomo.opt import SolverFactory, SolverResults, SolverStatus, TerminationCondition
 from pyomo.repn.plugins.nl_writer import NLWriter
 
 from tubeyield.errors import SolverOptionRefused, SolverUnavailable
+from tubeyield.modeling import pyo
 from tubeyield.solve.options import DEFAULT_OPTIONS, WARM_OPTIONS
 
 NAME = "tubeyield-ipopt"

@@ -15,7 +15,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from tubeyield.modeling import pyo
-
 from tubeyield.reactor.metrics import DISPLAY_UNIT
 from tubeyield.reactor.model import ReactorModel
 from tubeyield.study.units import convert, decision_to_user, unit_step
