@@ -340,11 +340,12 @@ def _window(args) -> int:
             raise StudyError(args.at, f"an {SAVED['optimize']} written by 'tubeyield optimize --save' ({exc})") from None
         if set(base) != {d.name for d in study.decisions}:
             raise StudyError(args.at, "an optimum of this study (its decisions differ)")
-    else:
-        res = optimize(study)
+    _at_least(args.workers, "--workers", 1, "a number of processes")
+    if not args.at:
+        from tubeyield.solve.forked import usable_cores
+        res = optimize(study, workers=args.workers or usable_cores())    # its starts on the same cores as the maps
         base, status = res.point(), res.status
     optimum = optimum_marker(study, base) if status in SOLVED else None
-    _at_least(args.workers, "--workers", 1, "a number of processes")
     result = window(study, base, workers=args.workers, optimum=optimum)
     if args.save:
         write_json(saved(args.save, "window"), result.to_dict())
