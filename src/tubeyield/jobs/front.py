@@ -28,7 +28,7 @@ import numpy as np
 
 from tubeyield import __version__
 from tubeyield import status as st
-from tubeyield.jobs.optimize import HELD_BY_STATE_BOUND, SAME_OPTIMUM, optimize
+from tubeyield.jobs.optimize import HELD_BY_STATE_BOUND, SAME_OPTIMUM, held_by_state_bound, optimize
 from tubeyield.jobs.problem import goal_scale, prepare
 from tubeyield.jobs.refine import verify_and_refine
 from tubeyield.jobs.result import Result, finite_json
@@ -339,12 +339,7 @@ def _point(model, study: Study, spec, level: float, solver) -> dict:
     active = [r.text for r in limit_reports(model) if r.active]
     active += [f"{b.decision} at {b.side} bound" for b in bound_reports(model) if b.side in ("low", "high")]
     check = compare(model, reference(model), study.numerics.check_tolerance)
-    holds = model.state_bound_holds()
-    held = None
-    if holds:
-        s, z, m = holds[0]
-        held = (f"{HELD_BY_STATE_BOUND} on the state of {s} at {z:.4g} of the reactor length at the level "
-                f"{metric_display(spec.x, level)[0]:.6g} (multiplier {m:.2g})")
+    held = held_by_state_bound(model, f" at the level {metric_display(spec.x, level)[0]:.6g}")
     return {"level": metric_display(spec.x, level)[0], "status": st.OPTIMAL if check.passed else st.UNVERIFIED,
             "x": x, "y": y, "trade_off": dy_dx, "decisions": decisions_to_user(study, values), "metrics": metrics,
             "active": active, "check": check.max_rel_error, "dominated": False,

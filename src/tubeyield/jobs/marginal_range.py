@@ -10,7 +10,7 @@ to the optimum afterwards.
 
 from __future__ import annotations
 
-from tubeyield.jobs.problem import timed_solve
+from tubeyield.jobs.problem import add_times, timed_solve
 from tubeyield.reactor.metrics import metric_display
 from tubeyield.reactor.model import ReactorModel
 from tubeyield.solve import OK_CONDITIONS, forked
@@ -63,8 +63,7 @@ def marginal_ranges(study: Study, model: ReactorModel, solver, options: dict, li
                 outs = forked.forked_map(lambda j: relaxed(j, batch), len(batch), workers)
                 stop = False
                 for share, (solved, gain, own) in zip(batch, outs):
-                    for key, v in own.items():
-                        timing[key] = timing.get(key, 0.0) + v
+                    add_times(timing, own)
                     change = sign * share * size                  # user units
                     predicted = entry["marginal"] * change
                     steps.append({"bound": bound_user + change, "gain": gain, "predicted": predicted,

@@ -14,7 +14,7 @@ import time
 from tubeyield import status as st
 from tubeyield.jobs.infeasible import FEASIBLE_VIOLATION, closest_point, conflict_message, conflicts
 from tubeyield.jobs.marginal_range import marginal_ranges
-from tubeyield.jobs.problem import prepare, starting_mesh, timed_solve
+from tubeyield.jobs.problem import add_times, prepare, starting_mesh, timed_solve
 from tubeyield.jobs.profile_search import is_profile_study, profile_starts
 from tubeyield.jobs.refine import verify_and_refine
 from tubeyield.jobs.result import Result
@@ -126,12 +126,10 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
                                "verification; the best verified point is reported")
     if status == st.UNVERIFIED:
         result.message = "NOT VERIFIED: " + "; ".join(_doubts(run, verified))
-    held = verified.model.state_bound_holds()
+    held = held_by_state_bound(verified.model)
     if held:
-        s, z, m = held[0]
         result.warnings.append(
-            f"{HELD_BY_STATE_BOUND} on the state of {s} at {z:.4g} of the reactor length "
-            f"(multiplier {m:.2g}), a guard for the iterations and not a limit of the reactor: a better point may "
+            f"{held}, a guard for the iterations and not a limit of the reactor: a better point may "
             "lie beyond it (the element holding it could not be split further: numerics.max_elements or the shortest "
             "element; check the point by simulation)")
     from tubeyield.study.read_kinetics import extrapolation
@@ -180,12 +178,10 @@ def _forked_starts(study: Study, model: ReactorModel, solver, options: dict, can
     stage times; the multipliers of the last start are taken as this solver's own, as after the serial loop.
     `timing` gets the stage times summed over the starts (work, not wall time) and "starts_wall"."""
     t = time.perf_counter()
-    model.set_decisions(candidates[0].decisions)
-    model.initialize(candidates[0].simulation)
+    # the build needs the structure and the bounds only: each start sets its own decisions and profile
     solver.build(model.m, options=options, reuse_structure=reuse)
-    for k in ("nl_write", "solver_build"):
-        timing[k] = timing.get(k, 0.0) + solver.last_timing.get(k, 0.0)
-    timing["solve"] = timing.get("solve", 0.0) + solver.last_timing.get("total", 0.0)
+    add_times(timing, {"nl_write": solver.last_timing["nl_write"], "solver_build": solver.last_timing["solver_build"],
+                       "solve": solver.last_timing["total"]})
 
     def one(i: int):
         own: dict = {}
@@ -194,8 +190,7 @@ def _forked_starts(study: Study, model: ReactorModel, solver, options: dict, can
 
     outcomes = forked.forked_map(one, len(candidates), workers)
     for _run, _plain, own, _pair in outcomes:
-        for k, v in own.items():
-            timing[k] = timing.get(k, 0.0) + v
+        add_times(timing, own)
     if outcomes[-1][3] is not None:
         solver.remember_multipliers(outcomes[-1][3])
     timing["starts_wall"] = time.perf_counter() - t
@@ -206,6 +201,16 @@ def _forked_starts(study: Study, model: ReactorModel, solver, options: dict, can
 # The opening of the warning that a state bound holds the optimum (ReactorModel.state_bound_holds); the front
 # matches it.
 HELD_BY_STATE_BOUND = "the optimum is held by the solver's lower bound"
+
+
+def held_by_state_bound(model: ReactorModel, where: str = "") -> str | None:
+    """Where a state bound holds the model's solution (its largest multiplier; ReactorModel.state_bound_holds), said
+    in words that open with HELD_BY_STATE_BOUND; `where` is added after the position. None when none holds."""
+    holds = model.state_bound_holds()
+    if not holds:
+        return None
+    s, z, m = holds[0]
+    return f"{HELD_BY_STATE_BOUND} on the state of {s} at {z:.4g} of the reactor length{where} (multiplier {m:.2g})"
 
 
 def _distinct_optima(study: Study, found: list) -> list:

@@ -69,7 +69,12 @@ def timed_solve(solver, model: ReactorModel, timing: dict, **kw):
     """solver.solve with its stages added to `timing` (solve = NL write + solver build + Ipopt + loading)."""
     t = time.perf_counter()
     res = solver.solve(model.m, **kw)
-    timing["solve"] = timing.get("solve", 0.0) + time.perf_counter() - t
-    for k in ("nl_write", "solver_build", "ipopt"):
-        timing[k] = timing.get(k, 0.0) + solver.last_timing.get(k, 0.0)
+    add_times(timing, {"solve": time.perf_counter() - t,
+                       **{k: solver.last_timing.get(k, 0.0) for k in ("nl_write", "solver_build", "ipopt")}})
     return res
+
+
+def add_times(timing: dict, more: dict) -> None:
+    """Add the stage times in `more` to `timing` (solves in forked copies hand theirs back this way)."""
+    for k, v in more.items():
+        timing[k] = timing.get(k, 0.0) + v
