@@ -86,6 +86,15 @@ class PlugModel(ReactorModel):
         floor = self.state_floors()
         m.u = pyo.Var(m.S, m.z, bounds=lambda m, s, z: (floor[s], None),
                       initialize=lambda m, s, z: pyo.value(self.u0[s]) / sc[s])
+        # The derivative values stay variables of the NLP, each defined by pyomo.dae's collocation equation, and the
+        # balances are written in them. Substituting the collocation formulas into the balances (the NLP in the states
+        # only: 1690 variables become 850 on the demo) was measured on 2026-12-05 and not kept. It is faster where it
+        # converges: Ipopt's time per iteration 4.0 ms against 2.5 ms, the whole `tubeyield optimize` of the demo
+        # 1.49-1.52 s against 1.32-1.35 s, its 21-point front 2.71 s against 1.93 s, with the same optima. But Ipopt's
+        # path changes with the formulation, and on the hard problems it went to worse points: the bench's invented
+        # 20-species stiff network ended unverified at 160 elements in 19.5 s (optimal at 40 elements in 4.1 s with
+        # the derivative values), and a free temperature profile of a series network (tests/test_profile_search.py)
+        # reached a local optimum whose one-element temperature ramp no mesh within numerics.max_elements verifies.
         m.du = dae.DerivativeVar(m.u, wrt=m.z)
         energy = st.reactor.mode.energy_balance
         if energy:

@@ -9,6 +9,11 @@ Ipopt and loads back primal values, constraint duals (`model.dual` import suffix
 
 so that a dual is the change of the optimal objective per unit increase of the constraint's bound.
 
+Why NL text: casadi's NL reader builds the expression graph in C++. Building it from Pyomo's expression trees in
+Python instead (a visitor making one casadi SX operation per node) was measured on the demo model (40 elements, about
+20 000 nodes; 2026-12-05): 0.34 s, against 0.07 s for the NL write and 0.02 s for casadi's reading. The walk alone,
+with plain floats in place of SX, took 0.025 s: the cost is the Python call into casadi at every node.
+
 Built solvers are cached per model structure and option set. The structure key is the NL text without the segments
 that hold numbers a re-solve may change (variable bounds `b`, constraint bounds `r`, starting points `x`, `d`), so a
 model whose parameters are variables pinned by equal bounds is re-solved with new values without a rebuild. Pinned
