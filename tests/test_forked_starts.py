@@ -112,3 +112,55 @@ def test_no_fork_while_another_thread_runs():
         stop.set()
         other.join()
     assert forked.can_fork()
+
+
+def test_the_demo_front_is_the_same_with_its_two_ends_at_once_on_two_cores():
+    from tubeyield.jobs.front import front
+    study = load_study(SCENARIOS / "oxidation.toml")
+    serial = front(study, points=7, workers=1).to_dict()
+    parallel = front(study, points=7, workers=2).to_dict()
+    assert serial["status"] == parallel["status"] == "done"
+    # the x-end in a forked copy while this process solves the y-end, each end's starts on one of the two cores
+    assert parallel["timing"]["end_processes"] == 2 and "end_processes" not in serial["timing"]
+    for end in ("y_optimum", "x_optimum"):
+        a, b = serial["ends"][end], parallel["ends"][end]
+        assert [(r["iterations"], r["goal"]) for r in a["starts"]["runs"]] == \
+            [(r["iterations"], r["goal"]) for r in b["starts"]["runs"]]
+        assert a["goal"] == b["goal"] and a["decisions"] == b["decisions"] and a["limits"] == b["limits"]
+    keys = ("level", "status", "x", "y", "trade_off", "decisions", "iterations")
+    assert [{k: p.get(k) for k in keys} for p in serial["points"]] == \
+        [{k: p.get(k) for k in keys} for p in parallel["points"]]
+    assert len(parallel["points"]) == 7
+
+
+def test_first_here_computes_task_zero_in_this_process_before_the_others():
+    parent = os.getpid()
+    here = []
+
+    def task(i):
+        if os.getpid() == parent:
+            here.append(i)
+        return i, os.getpid() == parent
+
+    out = forked.forked_map(task, 3, 2, first_here=True)
+    assert [i for i, _ in out] == [0, 1, 2]
+    assert out[0] == (0, True) and here[0] == 0        # its effects stay in this process, and it came first
+
+
+def test_a_models_bounds_are_put_back_as_they_were():
+    # what the front sets aside while its x-end is solved on the model its y-end left (jobs/front.py _ends)
+    import dataclasses
+    from tubeyield.jobs.problem import prepare
+    study = load_study(SCENARIOS / "oxidation.toml")
+    model = prepare(study)
+    before = [(v.lb, v.ub) for v in model._variables()]
+    state = model.bounds_state()
+    assert model.free_inert_stages()                    # the demo's products C and D feed nothing back
+    handle = next(h for h in model.limits if h.level is not None)
+    handle.set_bound(handle.bound * 0.9)
+    model.study = dataclasses.replace(study, name="another")
+    assert [(v.lb, v.ub) for v in model._variables()] != before
+    model.restore_bounds(state)
+    assert [(v.lb, v.ub) for v in model._variables()] == before
+    assert not model.inert_stages_free and model.study is study
+    assert model.free_inert_stages()                    # freed again from the bounds put back

@@ -109,10 +109,12 @@ def _si_unit(study: Study, name: str) -> str:
         return ""
 
 
-def front(study, *, points: int | None = None) -> FrontResult:
-    """The Pareto front of the study's [front] metrics."""
+def front(study, *, points: int | None = None, workers: int | None = None) -> FrontResult:
+    """The Pareto front of the study's [front] metrics. The starts of its two single-metric ends run on `workers`
+    cores (default: all; 1 for one at a time)."""
     from tubeyield.jobs.front import front as _front
-    return _front(_study(study, "front"), points=points)
+    from tubeyield.solve.forked import usable_cores
+    return _front(_study(study, "front"), points=points, workers=workers or usable_cores())
 
 
 def window(study, *, at: Result | dict | None = None, workers: int | None = None) -> WindowResult:

@@ -51,6 +51,7 @@ def _parser() -> argparse.ArgumentParser:
     f = sub.add_parser("front", help="the Pareto front of the two metrics in [front]")
     f.add_argument("study")
     f.add_argument("--points", type=int, help="number of levels (default: front.points)")
+    f.add_argument("--workers", type=int, help="cores for the starts of the two ends (default: all cores)")
     f.add_argument("--json", action="store_true")
     f.add_argument("--save", metavar="DIR", help=f"write {SAVED['front']} and {SAVED['front-table']} to DIR")
     _kinetics_option(f)
@@ -308,7 +309,9 @@ def _front(args) -> int:
 
     study = _load(args.study, "front", "x, y and points", kinetics=args.kinetics)
     _at_least(args.points, "--points", 3, "a number of levels")
-    result = front(study, points=args.points)
+    _at_least(args.workers, "--workers", 1, "a number of cores")
+    from tubeyield.solve.forked import usable_cores
+    result = front(study, points=args.points, workers=args.workers or usable_cores())
     if args.save:
         write_json(saved(args.save, "front"), result.to_dict())
         write_atomic(saved(args.save, "front-table"), result.table().to_csv(index=False))

@@ -35,7 +35,7 @@ from tubeyield.jobs.result import Result, finite_json
 from tubeyield.reactor import frozen_heap
 from tubeyield.reactor.metrics import all_metrics, metric_display
 from tubeyield.reactor.verify import compare, reference
-from tubeyield.solve import OK_CONDITIONS, make_solver
+from tubeyield.solve import OK_CONDITIONS, forked, make_solver
 from tubeyield.solve.marginals import bound_reports, limit_reports, limit_sensitivity
 from tubeyield.study.metric import Metric
 from tubeyield.study.schema import Study
@@ -95,7 +95,10 @@ def _with_goal(study: Study, metric: Metric, sense: str) -> Study:
     return dataclasses.replace(study, goal=dataclasses.replace(study.goal, metric=metric, sense=sense))
 
 
-def front(study: Study, *, points: int | None = None, solver=None) -> FrontResult:
+def front(study: Study, *, points: int | None = None, solver=None, workers: int = 1) -> FrontResult:
+    """The Pareto front of `study`'s [front] metrics: the two single-metric optima (the ends, each a multistart
+    optimization whose starts run on `workers` cores: jobs/optimize.py), then the levels of x between them by
+    continuation, one after another."""
     spec = study.front
     n = points or spec.points
     t0 = time.perf_counter()
@@ -123,15 +126,10 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
     x_scale = 1.0 if spec.x.kind in ("conversion", "yield", "selectivity") else None
     free_level = -1e6 if xs == "max" else 1e6
     model.add_level(LEVEL, spec.x, ">=" if xs == "max" else "<=", free_level * (x_scale or 1.0), x_scale or 1.0)
-    y_opt = optimize(fstudy, solver=solver, model=model, screened=screened)
-    y_snapshot = model.snapshot() if y_opt.status in USABLE_ENDS else None
-    if shared:
-        model.use_goal(1)
-        x_opt = optimize(xstudy, solver=solver, model=model, screened=screened)
-        model.use_goal(0)
-    else:
-        x_opt = optimize(xstudy, solver=solver, screened=screened)
+    y_opt, x_opt, y_snapshot, processes = _ends(fstudy, xstudy, model, solver, options, screened, shared, workers)
     timing["ends"] = time.perf_counter() - t
+    if processes > 1:
+        timing["end_processes"] = processes
     ends = {"y_optimum": y_opt.to_dict(), "x_optimum": x_opt.to_dict()}
     result = FrontResult(study.name, spec.x.text, spec.y.text, xs, ys, st.DONE, [], ends, timing=timing)
     if y_opt.status not in USABLE_ENDS or x_opt.status not in USABLE_ENDS:
@@ -262,6 +260,51 @@ def front(study: Study, *, points: int | None = None, solver=None) -> FrontResul
 
 END_INSET = 1e-6     # the last level's distance inside the x-end, as a share of the front's x range
 USABLE_ENDS = (st.OPTIMAL, st.UNVERIFIED)
+
+
+def _ends(fstudy: Study, xstudy: Study, model, solver, options: dict, screened: list, shared: bool, workers: int):
+    """The front's two single-metric optima: (y-end, x-end, snapshot of the model at the y-end or None, the number
+    of processes that solved them).
+
+    Each end is optimized from the model as the front built it: what the y-end's solves and verification leave on the
+    shared model (its values, released stage bounds, tightened temperature limits) is put aside while the x-end is
+    solved, and put back for the levels. On two or more cores the x-end is solved in a forked copy of this process, made before
+    the y-end starts, while this process solves the y-end (solve/forked.py), each end's starts on half of the cores:
+    the same results as one end after the other, in the time of the longer end. The problem is written and the solver
+    built before the copy is made, once for both."""
+    built = model.bounds_state(), model.snapshot()
+    concurrent = workers > 1 and forked.can_fork()
+    cores = (max(1, workers // 2), max(1, workers - workers // 2)) if concurrent else (workers, workers)
+    kept = {}
+
+    def y_end():
+        y_opt = optimize(fstudy, solver=solver, model=model, screened=screened, workers=cores[0])
+        kept["snapshot"] = model.snapshot() if y_opt.status in USABLE_ENDS else None
+        return y_opt
+
+    def x_end():
+        if not shared:
+            return optimize(xstudy, solver=solver, screened=screened, workers=cores[1])
+        after_y = model.bounds_state(), model.snapshot()
+        _put_back(model, built)
+        model.use_goal(1)
+        try:
+            return optimize(xstudy, solver=solver, model=model, screened=screened, workers=cores[1])
+        finally:
+            model.use_goal(0)
+            _put_back(model, after_y)
+
+    if concurrent and hasattr(solver, "build"):
+        solver.build(model.m, options=options)
+    y_opt, x_opt = forked.forked_map(lambda i: y_end() if i == 0 else x_end(), 2, 2 if concurrent else 1,
+                                     first_here=True)
+    return y_opt, x_opt, kept.get("snapshot"), 2 if concurrent else 1
+
+
+def _put_back(model, state) -> None:
+    bounds, values = state
+    model.restore_bounds(bounds)
+    model.restore(values)
 
 
 def _finest_mesh(model, *ends):

@@ -392,6 +392,26 @@ class ReactorModel:
             rc[variables[k]] = y
         return {"values": list(zip(variables, plain["values"])), "dual": dual, "rc": rc}
 
+    def bounds_state(self) -> dict:
+        """The bounds of every variable (among them the pinned levels of limits and goal weights) and the study, as
+        set now: what a solve and its verification may change on a shared model (released stage bounds, tightened
+        temperature limits, another goal), to put back with restore_bounds."""
+        return {"bounds": [(v.lb, v.ub) for v in self._variables()], "inert_free": self.inert_stages_free,
+                "study": self.study}
+
+    def restore_bounds(self, state: dict) -> None:
+        """Put back the bounds and study of a bounds_state of this model."""
+        variables = self._variables()
+        if len(variables) != len(state["bounds"]):
+            raise ValueError("bounds of another structure of the model")
+        for v, (lb, ub) in zip(variables, state["bounds"]):
+            v.setlb(lb)
+            v.setub(ub)
+            if lb is not None and lb == ub:
+                v.set_value(lb, skip_validation=True)
+        self.inert_stages_free = state["inert_free"]
+        self.study = state["study"]
+
     def _constraints(self) -> list:
         return list(self.m.component_data_objects(pyo.Constraint, descend_into=True))
 

@@ -174,7 +174,9 @@ def front_summary(result) -> str:
     out += rows
     t = result.timing
     if t:
-        out.append("time: " + ", ".join(f"{k} {v:.2f} s" for k, v in t.items()))
+        at_once = " (the two at once, in 2 processes)" if t.get("end_processes") == 2 else ""
+        out.append("time: " + ", ".join(f"{k} {v:.2f} s" + (at_once if k == "ends" else "")
+                                        for k, v in t.items() if k != "end_processes"))
     out += ["", CAUTION]
     return "\n".join(out)
 

@@ -41,18 +41,19 @@ def can_fork() -> bool:
     return sys.platform.startswith("linux") and hasattr(os, "fork") and threading.active_count() == 1
 
 
-def forked_map(task, n: int, workers: int) -> list:
+def forked_map(task, n: int, workers: int, first_here: bool = False) -> list:
     """[task(i) for i in range(n)], computed by this process and up to workers - 1 forked copies of it.
 
     `task(i)` must return a picklable value; an exception in a copy makes this process compute that task itself (and
-    raise, if it fails here too, as the serial loop would)."""
+    raise, if it fails here too, as the serial loop would). With `first_here`, task 0 is computed in this process,
+    first, and its effects on this process stay here (the copies are made before it starts)."""
     workers = min(int(workers), n)
     if workers <= 1 or not can_fork() or n > MAX_TASKS:
         return [task(i) for i in range(n)]
     tasks_r, tasks_w = os.pipe()
     # every index is written before the copies are made, and the write end closed: an empty pipe then reads as the
     # end of the work (a read of 4 bytes from a pipe is atomic, so no two processes take the same index)
-    os.write(tasks_w, b"".join(_INDEX.pack(i) for i in range(n)))
+    os.write(tasks_w, b"".join(_INDEX.pack(i) for i in range(1 if first_here else 0, n)))
     os.close(tasks_w)
     children = []                                   # (pid, read end of its result pipe)
     results: dict[int, object] = {}
@@ -66,6 +67,8 @@ def forked_map(task, n: int, workers: int) -> list:
                 _child(task, tasks_r, out_w)
             os.close(out_w)
             children.append((pid, out_r))
+        if first_here:
+            results[0] = task(0)
         for i in _indices(tasks_r):
             results[i] = task(i)
         for pid, out_r in children:
