@@ -164,3 +164,23 @@ def test_a_models_bounds_are_put_back_as_they_were():
     assert [(v.lb, v.ub) for v in model._variables()] == before
     assert not model.inert_stages_free and model.study is study
     assert model.free_inert_stages()                    # freed again from the bounds put back
+
+
+def test_screening_on_two_cores_gives_the_same_starts_with_their_simulations():
+    import numpy as np
+    from tubeyield.solve import multistart
+    study = load_study(SCENARIOS / "oxidation.toml")
+    serial = multistart.starts(study, 4)
+    parallel = multistart.starts(study, 4, workers=2)
+    assert [(c.decisions, c.goal, c.violation) for c in serial] == [(c.decisions, c.goal, c.violation) for c in parallel]
+    z = np.linspace(0.0, 1.0, 11)
+    for a, b in zip(serial, parallel):
+        assert not b.elsewhere and b.simulation is not None
+        assert all(np.array_equal(a.simulation.states_at(z).flows[s], b.simulation.states_at(z).flows[s])
+                   for s in study.symbols)
+    # the points came back from the copies as scores: only the starts were simulated again here
+    design = multistart.design(study, 32)
+    scored = multistart.screen(study, design, workers=2)
+    assert all(c.simulation is None and c.elsewhere == (c.violation < float("inf")) for c in scored)
+    assert sum(c.elsewhere for c in scored) > 0
+    assert [(c.decisions, c.goal) for c in scored] == [(c.decisions, c.goal) for c in multistart.screen(study, design)]

@@ -50,7 +50,8 @@ def optimize(study: Study, *, starts: int | None = None, seed: int = 0, solver=N
               "ipopt": 0.0}
 
     t = time.perf_counter()
-    candidates = multistart.starts(study, starts or numerics.starts, seed, screened=screened)
+    candidates = multistart.starts(study, starts or numerics.starts, seed, screened=screened,
+                                   workers=1 if tee else workers)
     timing["screen"] = time.perf_counter() - t
     if not candidates:
         return _failed(study, "the reference simulation failed at every starting point", timing)

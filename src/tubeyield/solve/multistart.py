@@ -4,16 +4,21 @@ reference simulation.
 A Latin hypercube (McKay, Beckman and Conover, Technometrics 21 (1979) 239-245) spreads candidate
 operating points over the decision box. Each is simulated (cheap, at a loose tolerance) and ranked: points that meet
 every limit first, by goal; then the others by how far they miss. The best few seed Ipopt, each initialized from its
-own simulation, so every local solve starts near a consistent profile.
+own simulation, so every local solve starts near a consistent profile. On several cores the design's points are
+simulated in forked copies of the process (solve/forked.py), which hand back each point's goal and limit misses; the
+few points that seed Ipopt are then simulated again here, where their profiles are needed (a simulation holds
+functions and cannot be handed between processes), to the same numbers.
 """
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
 
 from tubeyield.errors import SimulationFailed
+from tubeyield.solve import forked
 from tubeyield.reactor.simulate import Simulation, simulate
 from tubeyield.study.schema import Study
 
@@ -27,6 +32,7 @@ class Candidate:
     goal: float
     violation: float          # sum of limit violations, each relative to its bound scale
     label: str = "screened design"   # where the start comes from
+    elsewhere: bool = False   # simulated in a forked copy: `simulation` is made here when the point is used
 
     def rank_key(self, sense: str):
         feasible = self.violation <= 1e-9
@@ -82,21 +88,43 @@ def violation(study: Study, sim: Simulation) -> float:
     return sum(max(0.0, miss) / scale for _, miss, scale in limit_misses(study, sim))
 
 
-def screen(study: Study, points: list[dict]) -> list[Candidate]:
-    """Simulate each point; a point whose simulation fails is kept with an infinite violation."""
-    out = []
-    for p in points:
-        try:
-            sim = simulate(study, p, rtol=SCREEN_RTOL)
-            goal = sim.metric(study.goal.metric)
-            v = violation(study, sim)
-            if not np.isfinite(goal):
-                raise SimulationFailed("goal is not finite")
-        except (SimulationFailed, ArithmeticError):  # a point where the model cannot be evaluated: a bad start
-            sim, goal, v = None, -np.inf if study.goal.sense == "max" else np.inf, np.inf
-        out.append(Candidate(p, sim, goal, v))
+def screened_point(study: Study, p: dict) -> Candidate:
+    """Point p simulated and scored; a point whose simulation fails gets an infinite violation and no simulation."""
+    try:
+        sim = simulate(study, p, rtol=SCREEN_RTOL)
+        goal = sim.metric(study.goal.metric)
+        v = violation(study, sim)
+        if not np.isfinite(goal):
+            raise SimulationFailed("goal is not finite")
+    except (SimulationFailed, ArithmeticError):  # a point where the model cannot be evaluated: a bad start
+        sim, goal, v = None, -np.inf if study.goal.sense == "max" else np.inf, np.inf
+    return Candidate(p, sim, goal, v)
+
+
+def screen(study: Study, points: list[dict], workers: int = 1) -> list[Candidate]:
+    """Simulate each point and rank them (a point whose simulation fails is kept with an infinite violation). With
+    `workers` > 1 the points are simulated on that many cores, and the candidates that come back from a forked copy
+    carry their scores only (`elsewhere`; `simulated_here` makes their simulation)."""
+    if workers > 1 and len(points) > 1:
+        def scored(i):
+            c = screened_point(study, points[i])
+            return c.goal, c.violation, c.simulation is not None
+        out = [Candidate(p, None, goal, v, elsewhere=ok)
+               for p, (goal, v, ok) in zip(points, forked.forked_map(scored, len(points), workers))]
+    else:
+        out = [screened_point(study, p) for p in points]
     out.sort(key=lambda c: c.rank_key(study.goal.sense))
     return out
+
+
+def simulated_here(study: Study, c: Candidate) -> Candidate:
+    """`c` with its simulation, made in this process when it was screened in a forked copy: the same code on the same
+    point gives the same numbers."""
+    if not c.elsewhere:
+        return c
+    here = screened_point(study, c.decisions)
+    return dataclasses.replace(c, simulation=here.simulation, elsewhere=False) if here.simulation is not None else \
+        dataclasses.replace(c, elsewhere=False)
 
 
 def rerank(study: Study, screened: list[Candidate]) -> list[Candidate]:
@@ -112,8 +140,9 @@ def rerank(study: Study, screened: list[Candidate]) -> list[Candidate]:
 
 
 def starts(study: Study, n_starts: int, seed: int = 0, oversample: int = 8, rounds: int = 2,
-           screened: list[Candidate] | None = None) -> list[Candidate]:
-    """The `n_starts` best of a screened design of max(16, oversample x n_starts, 4 per decision) points.
+           screened: list[Candidate] | None = None, workers: int = 1) -> list[Candidate]:
+    """The `n_starts` best of a screened design of max(16, oversample x n_starts, 4 per decision) points, simulated
+    on `workers` cores.
 
     When no screened point meets every limit (a narrow window), up to `rounds` more designs of twice the size are
     screened first: simulations cost milliseconds, while starting from a point outside the limits costs a
@@ -125,12 +154,18 @@ def starts(study: Study, n_starts: int, seed: int = 0, oversample: int = 8, roun
         if ranked and (ranked[0].violation <= 0 or not study.goal.limits):
             return ranked[:n_starts]
     else:
-        ranked = screen(study, design(study, n, seed))
+        ranked = screen(study, design(study, n, seed), workers)
     for k in range(rounds):
         if not study.goal.limits or (ranked and ranked[0].violation <= 0) or n_free == 0:
             break
         n *= 2
-        ranked = sorted(ranked + screen(study, design(study, n, seed + 1 + k)),
+        ranked = sorted(ranked + screen(study, design(study, n, seed + 1 + k), workers),
                         key=lambda c: c.rank_key(study.goal.sense))
-    usable = [c for c in ranked if c.simulation is not None]
-    return usable[:n_starts]
+    usable = []
+    for c in ranked:
+        if len(usable) == n_starts:
+            break
+        c = simulated_here(study, c)
+        if c.simulation is not None:
+            usable.append(c)
+    return usable
