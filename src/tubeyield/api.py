@@ -110,8 +110,8 @@ def _si_unit(study: Study, name: str) -> str:
 
 
 def front(study, *, points: int | None = None, workers: int | None = None) -> FrontResult:
-    """The Pareto front of the study's [front] metrics. The starts of its two single-metric ends run on `workers`
-    cores (default: all; 1 for one at a time)."""
+    """The Pareto front of the study's [front] metrics. Its two single-metric ends are solved at once, and their
+    starts, on `workers` cores (default: all; 1 for one after the other); the front is the same."""
     from tubeyield.jobs.front import front as _front
     from tubeyield.solve.forked import usable_cores
     return _front(_study(study, "front"), points=points, workers=workers or usable_cores())

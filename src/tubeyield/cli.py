@@ -51,7 +51,7 @@ def _parser() -> argparse.ArgumentParser:
     f = sub.add_parser("front", help="the Pareto front of the two metrics in [front]")
     f.add_argument("study")
     f.add_argument("--points", type=int, help="number of levels (default: front.points)")
-    f.add_argument("--workers", type=int, help="cores for the starts of the two ends (default: all cores)")
+    f.add_argument("--workers", type=int, help="cores for the two ends and their starts (default: all cores)")
     f.add_argument("--json", action="store_true")
     f.add_argument("--save", metavar="DIR", help=f"write {SAVED['front']} and {SAVED['front-table']} to DIR")
     _kinetics_option(f)

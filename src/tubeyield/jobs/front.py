@@ -97,7 +97,7 @@ def _with_goal(study: Study, metric: Metric, sense: str) -> Study:
 
 def front(study: Study, *, points: int | None = None, solver=None, workers: int = 1) -> FrontResult:
     """The Pareto front of `study`'s [front] metrics: the two single-metric optima (the ends, each a multistart
-    optimization whose starts run on `workers` cores: jobs/optimize.py), then the levels of x between them by
+    optimization; on two or more `workers` the two at once, see _ends), then the levels of x between them by
     continuation, one after another."""
     spec = study.front
     n = points or spec.points

@@ -18,8 +18,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from tubeyield.errors import SimulationFailed
-from tubeyield.solve import forked
 from tubeyield.reactor.simulate import Simulation, simulate
+from tubeyield.solve import forked
 from tubeyield.study.schema import Study
 
 SCREEN_RTOL = 1e-7
