@@ -133,9 +133,19 @@ def test_the_demo_front_is_the_same_with_its_two_ends_at_once_on_two_cores():
     assert len(parallel["points"]) == 7
 
 
-def test_first_here_computes_task_zero_in_this_process_before_the_others():
+def test_first_here_computes_task_zero_in_this_process_before_the_others(monkeypatch):
     parent = os.getpid()
     here = []
+    indices = forked._indices
+
+    def slow_here(tasks_r):
+        # this process comes late to the pipe of indices: without first_here the copy takes task 0
+        if os.getpid() == parent:
+            import time
+            time.sleep(0.5)
+        yield from indices(tasks_r)
+
+    monkeypatch.setattr(forked, "_indices", slow_here)
 
     def task(i):
         if os.getpid() == parent:
@@ -145,6 +155,8 @@ def test_first_here_computes_task_zero_in_this_process_before_the_others():
     out = forked.forked_map(task, 3, 2, first_here=True)
     assert [i for i, _ in out] == [0, 1, 2]
     assert out[0] == (0, True) and here[0] == 0        # its effects stay in this process, and it came first
+    here.clear()
+    assert forked.forked_map(task, 3, 2)[0] == (0, False) and 0 not in here    # the race first_here removes
 
 
 def test_a_models_bounds_are_put_back_as_they_were():
@@ -172,7 +184,8 @@ def test_screening_on_two_cores_gives_the_same_starts_with_their_simulations():
     study = load_study(SCENARIOS / "oxidation.toml")
     serial = multistart.starts(study, 4)
     parallel = multistart.starts(study, 4, workers=2)
-    assert [(c.decisions, c.goal, c.violation) for c in serial] == [(c.decisions, c.goal, c.violation) for c in parallel]
+    assert [(c.decisions, c.goal, c.violation) for c in serial] == \
+        [(c.decisions, c.goal, c.violation) for c in parallel]
     z = np.linspace(0.0, 1.0, 11)
     for a, b in zip(serial, parallel):
         assert not b.elsewhere and b.simulation is not None

@@ -268,10 +268,10 @@ def _ends(fstudy: Study, xstudy: Study, model, solver, options: dict, screened: 
 
     Each end is optimized from the model as the front built it: what the y-end's solves and verification leave on the
     shared model (its values, released stage bounds, tightened temperature limits) is put aside while the x-end is
-    solved, and put back for the levels. On two or more cores the x-end is solved in a forked copy of this process, made before
-    the y-end starts, while this process solves the y-end (solve/forked.py), each end's starts on half of the cores:
-    the same results as one end after the other, in the time of the longer end. The problem is written and the solver
-    built before the copy is made, once for both."""
+    solved, and put back for the levels. On two or more cores the x-end is solved in a forked copy of this process,
+    made before the y-end starts, while this process solves the y-end (solve/forked.py), each end's starts on half of
+    the cores: the same results as one end after the other, in the time of the longer end. The problem is written
+    and the solver built before the copy is made, once for both."""
     built = model.bounds_state(), model.snapshot()
     concurrent = workers > 1 and forked.can_fork()
     cores = (max(1, workers // 2), max(1, workers - workers // 2)) if concurrent else (workers, workers)

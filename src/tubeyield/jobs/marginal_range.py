@@ -45,6 +45,9 @@ def marginal_ranges(study: Study, model: ReactorModel, solver, options: dict, li
             sign = 1.0 if lim.sense == "<=" else -1.0              # the direction that relaxes the limit
             original = handle.bound                               # SI; a tightened temperature limit stays so
             steps, holds_to, k = [], None, 0
+            # steps side by side only where copies can be made: run here one after another, a batch would solve
+            # steps past the first that fails or stops holding for nothing
+            at_once = max(1, workers) if forked.can_fork() else 1
 
             def relaxed(j: int, batch: tuple) -> tuple:
                 handle.set_bound(original + sign * batch[j] * size * per_user)
@@ -59,8 +62,8 @@ def marginal_ranges(study: Study, model: ReactorModel, solver, options: dict, li
                 # with more than one core, the next steps are solved side by side in forked copies (each step is a
                 # cold solve from the optimum, so the result is the same); those past the first that fails or
                 # stops holding are not used
-                batch = RELAX_STEPS[k:k + max(1, workers)]
-                outs = forked.forked_map(lambda j: relaxed(j, batch), len(batch), workers)
+                batch = RELAX_STEPS[k:k + at_once]
+                outs = forked.forked_map(lambda j: relaxed(j, batch), len(batch), at_once)
                 stop = False
                 for share, (solved, gain, own) in zip(batch, outs):
                     add_times(timing, own)

@@ -190,7 +190,6 @@ class BundledIpopt:
         results.problem.lower_bound = results.problem.upper_bound = self.last_stats["objective"]
         return results
 
-
     def build(self, model, *, options: dict | None = None, reuse_structure: bool = False, tee: bool = False) -> None:
         """Write `model` and build its solver for `options`, as `solve` would, without solving: forked copies of the
         process then share the built solver (solve/forked.py)."""

@@ -105,7 +105,9 @@ def screen(study: Study, points: list[dict], workers: int = 1) -> list[Candidate
     """Simulate each point and rank them (a point whose simulation fails is kept with an infinite violation). With
     `workers` > 1 the points are simulated on that many cores, and the candidates that come back from a forked copy
     carry their scores only (`elsewhere`; `simulated_here` makes their simulation)."""
-    if workers > 1 and len(points) > 1:
+    if workers > 1 and len(points) > 1 and forked.can_fork():
+        # (where no copy can be made, the points are simulated here with their simulations kept: scores alone would
+        # only mean simulating the starts twice)
         def scored(i):
             c = screened_point(study, points[i])
             return c.goal, c.violation, c.simulation is not None
